@@ -1,0 +1,9 @@
+"""Shared test setup: make tests/ importable (reference_values) and use a headless plotting backend."""
+
+import sys
+from pathlib import Path
+
+import matplotlib
+
+matplotlib.use("Agg")
+sys.path.insert(0, str(Path(__file__).parent))

@@ -1,0 +1,441 @@
+"""Tests of the Fourier first-zero estimator and the q2/q1 diagnostic (vsini.fourier; issue 4).
+
+Sources of the checks:
+- zeros of the linear-law rotation transform: J1 zeros (scipy.special.jn_zeros) for eps = 0 and the roots of
+  tan x = x for eps = 1 (closed forms of Gray 2005, ch. 18; reference_values.py);
+- the first zero against the polynomial of Dravins, Lindegren & Torkelsson 1990, A&A 237, 137 (from memory);
+- q2/q1 of rigid rotators and its fall with solar-like differential rotation: Reiners & Schmitt 2002, A&A 384, 155;
+- the convolution theorem (Bracewell, *The Fourier Transform and Its Applications*; common practice): factors
+  without zeros do not move the zeros;
+- the white-noise level of a transform (project reference notes, section 9: derived).
+"""
+
+import json
+import math
+
+import numpy as np
+import pytest
+from reference_values import Q2Q1_RIGID, Q_EPS0, Q_EPS1, Q_QUADRATIC_EXAMPLE, q1_dravins_1990
+
+from vsini import fourier as F
+from vsini.errors import InputError, MeasurementError
+from vsini.grid import C_KMS
+from vsini.kernels import gaussian_transform, instrument_width
+from vsini.limbdark import quadratic
+from vsini.model import Broadening, synthesize
+from vsini.simulate import simulate_spectrum
+from vsini.spectrum import Spectrum
+
+R = 50_000.0
+
+
+def line_profile(vsini, *, ew=10.0, dv=1.0, extra=1.3, **broadening):
+    """A noiseless line depression (pixel means, exact sub-pixel kernels) centred on v = 0."""
+    b = Broadening(vsini=vsini, **broadening)
+    half = extra * b.half_extent() + 5 * dv
+    n = int(2 * half / dv) + 1
+    v = -half + dv * np.arange(n)
+    return v, synthesize(b, dv, n, np.array([half]), np.array([ew]))[0]
+
+
+# --------------------------------------------------------------------------------------------- zero positions
+
+
+def test_rotation_zeros_closed_forms():
+    # eps = 0: 2 J1(u)/u -> zeros j_{1,k}/(2 pi); eps = 1: 3 j1(u)/u -> roots of tan u = u (Gray 2005, ch. 18).
+    np.testing.assert_allclose(F.rotation_zeros(0.0), Q_EPS0, rtol=1e-10)
+    np.testing.assert_allclose(F.rotation_zeros(1.0), Q_EPS1, rtol=1e-10)
+
+
+@pytest.mark.parametrize("eps", np.linspace(0.0, 1.0, 11))
+def test_quadratic_table_linear_limit_matches_dravins_1990(eps):
+    # Dravins, Lindegren & Torkelsson 1990 polynomial (from memory), to 0.2 %: the table at b = 0.
+    q1 = F.rotation_zeros(quadratic(eps, 0.0))[0]
+    assert q1 == pytest.approx(q1_dravins_1990(eps), rel=2e-3)
+    assert q1 == pytest.approx(F.rotation_zeros(eps)[0], rel=1e-7)
+
+
+def test_quadratic_table_interpolation_matches_direct_roots():
+    rng = np.random.default_rng(4)
+    for _ in range(20):
+        a = rng.uniform(0.0, 1.0)
+        b = rng.uniform(-0.4, min(0.8, 1.0 - a))
+        np.testing.assert_allclose(F.rotation_zeros(quadratic(a, b)), quadratic(a, b).transform_zeros(2), rtol=1e-6)
+    # Example of the reference notes, section 4 (computed from the closed form): (0.4, 0.25).
+    q = F.rotation_zeros(quadratic(*Q_QUADRATIC_EXAMPLE["ab"]))
+    assert q[0] == pytest.approx(Q_QUADRATIC_EXAMPLE["q1"], abs=1e-4)
+    assert q[1] / q[0] == pytest.approx(Q_QUADRATIC_EXAMPLE["q2_over_q1"], abs=1e-4)
+    # outside the table: direct roots
+    np.testing.assert_allclose(F.rotation_zeros(quadratic(1.3, -0.4)), quadratic(1.3, -0.4).transform_zeros(2))
+
+
+def test_zero_table_regenerates_identically():
+    """The shipped kernels/q1_quadratic.ecsv is what build_zero_table() makes (STYLE habit 16)."""
+    from importlib.resources import files
+
+    from astropy.table import Table
+
+    shipped = Table.read(str(files("vsini.data").joinpath(F.ZERO_TABLE_NAME)), format="ascii.ecsv")
+    fresh = F.build_zero_table()
+    assert len(shipped) == len(fresh)
+    for col in ("a", "b", "q1", "q2"):
+        np.testing.assert_allclose(shipped[col], fresh[col], rtol=1e-12, atol=1e-15)
+    assert "python -m vsini.fourier" in shipped.meta["regenerate"]
+
+
+def test_write_zero_table_to_path(tmp_path):
+    path = F.write_zero_table(tmp_path / "zeros.ecsv")
+    assert path.endswith("zeros.ecsv")
+    assert F.rotation_zeros(quadratic(0.4, 0.25))[0] == pytest.approx(Q_QUADRATIC_EXAMPLE["q1"], abs=1e-4)
+
+
+def test_missing_zero_table_raises(monkeypatch):
+    monkeypatch.setattr(F, "ZERO_TABLE_NAME", "no_such_table.ecsv")
+    F.load_zero_table.cache_clear()
+    try:
+        with pytest.raises(MeasurementError, match="regenerate it with 'python -m vsini.fourier'"):
+            F.load_zero_table()
+    finally:
+        monkeypatch.undo()
+        F.load_zero_table.cache_clear()
+
+
+def test_rigid_q2_q1_range_linear_law():
+    # Reiners & Schmitt 2002: rigid q2/q1 ~1.76 at eps = 0.6; 1.83 (eps 0) to 1.72 (eps 1) (reference notes, section 3).
+    for eps, value in Q2Q1_RIGID.items():
+        assert F.rigid_q2_q1_range(eps, tolerance=0.0)[1] == pytest.approx(value, abs=1e-3)
+    lo, mid, hi = F.rigid_q2_q1_range(0.6, tolerance=0.1)
+    q_hi, q_lo = F.rotation_zeros(0.5), F.rotation_zeros(0.7)
+    assert (lo, hi) == pytest.approx((q_lo[1] / q_lo[0], q_hi[1] / q_hi[0]), rel=1e-12)
+    assert lo < mid < hi
+    lo_q, mid_q, hi_q = F.rigid_q2_q1_range(quadratic(0.4, 0.25))
+    assert mid_q == pytest.approx(Q_QUADRATIC_EXAMPLE["q2_over_q1"], abs=1e-4) and lo_q < mid_q < hi_q
+    # a corner with negative limb intensity (a + b > 1) uses the mathematical extension of the table
+    assert np.all(np.isfinite(F.rigid_q2_q1_range(quadratic(0.6, 0.35), tolerance=0.1)))
+
+
+def test_macro_zero_positions_move_with_zeta():
+    """Joint rotation + radial-tangential kernel (Gray 2005, ch. 17-18): zeros move up, q2/q1 drops, then vanish."""
+    np.testing.assert_allclose(F.macro_zero_positions(0.0), F.rotation_zeros(0.6))
+    q = np.array([F.macro_zero_positions(r) for r in (0.1, 0.3, 0.5)])
+    assert np.all(np.diff(q[:, 0]) > 0) and np.all(np.diff(q[:, 1] / q[:, 0]) < 0)
+    assert q[0, 0] == pytest.approx(F.rotation_zeros(0.6)[0], rel=1e-4)
+    assert np.all(np.isnan(F.macro_zero_positions(1.0)))
+    with pytest.raises(InputError, match="zeta/vsini must be >= 0"):
+        F.macro_zero_positions(-0.1)
+
+
+# --------------------------------------------------------------------------------------------- transform and noise
+
+
+def test_cosine_taper_is_the_tukey_window():
+    from scipy.signal.windows import tukey
+
+    for n, f in ((101, 0.1), (64, 0.25), (50, 0.5)):
+        np.testing.assert_allclose(F.cosine_taper(n, f), tukey(n, 2 * f), atol=1e-12)
+    assert np.all(F.cosine_taper(20, 0.0) == 1.0)
+    with pytest.raises(InputError, match="taper fraction must be within 0..0.5"):
+        F.cosine_taper(10, 0.7)
+
+
+def test_line_transform_of_a_gaussian_is_its_closed_form():
+    # A Gaussian e^{-(v/b)^2} sampled at points has transform e^{-(pi b sigma)^2} (kernels.gaussian_transform).
+    b = 6.0
+    v = np.arange(-60.0, 60.0 + 1e-9, 0.5)
+    spec = F.line_transform((v, 0.4 * np.exp(-((v / b) ** 2)), 0.0, 0.0), taper=0.1)
+    keep = spec.sigma < 0.25
+    np.testing.assert_allclose(spec.amplitude[keep], gaussian_transform(spec.sigma[keep], b), atol=1e-9)
+    np.testing.assert_allclose(spec.real[keep], spec.amplitude[keep], atol=1e-9)
+    custom = F.line_transform((v, 0.4 * np.exp(-((v / b) ** 2)), 0.0, 0.0), sigma=np.array([0.0, 0.05]))
+    assert custom.amplitude[0] == pytest.approx(1.0) and custom.amplitude[1] == pytest.approx(
+        float(gaussian_transform(0.05, b)), abs=1e-9)
+
+
+def test_white_noise_level_of_the_transform():
+    # |FT(noise)| rms = sigma_n dv sqrt(N) (reference notes, section 9; derived); checked by simulation.
+    rng = np.random.default_rng(11)
+    n, dv, s_n = 400, 1.5, 0.01
+    v = dv * np.arange(n)
+    noise = s_n * rng.standard_normal((300, n))
+    sig = np.array([0.05, 0.1, 0.2])
+    ft = dv * noise @ np.exp(-2j * np.pi * np.outer(v, sig))
+    rms = np.sqrt(np.mean(np.abs(ft) ** 2))
+    assert rms == pytest.approx(F.transform_noise_level(s_n, dv, n), rel=0.05)
+
+
+def test_usable_frequency_limit_gaussian_closed_form():
+    eta, t = 1e-3, 3.0
+    s_max = F.usable_frequency_limit(eta, resolution=R, threshold=t)
+    assert gaussian_transform(s_max, instrument_width(R)) == pytest.approx(t * eta, rel=1e-10)
+    assert F.usable_frequency_limit(eta, resolution=R, step_kms=5.0) == pytest.approx(0.1)  # Nyquist 1/(2 dv)
+    assert F.usable_frequency_limit(0.5, resolution=R) == 0.0  # buried even at sigma = 0
+    assert math.isinf(F.usable_frequency_limit(eta))
+    from vsini.model import TabulatedLSF
+
+    vv = np.linspace(-20, 20, 401)
+    lsf = TabulatedLSF(vv, np.exp(-((vv / instrument_width(R)) ** 2)))
+    assert F.usable_frequency_limit(eta, lsf=lsf, step_kms=0.5) == pytest.approx(s_max, rel=0.01)
+
+
+# --------------------------------------------------------------------------------------------- zeros of kernels
+
+
+@pytest.mark.parametrize(("eps", "q_ref"), [(0.0, Q_EPS0), (0.6, None), (1.0, Q_EPS1)])
+def test_measured_zeros_of_noiseless_kernels(eps, q_ref):
+    # Sampled rotation kernels (pixel means): the measured zeros are the closed-form ones (J1 zeros for eps = 0,
+    # tan x = x for eps = 1, Dravins et al. 1990 polynomial for the first zero), to 0.2 %.
+    vsini = 30.0
+    v, d = line_profile(vsini, limb_darkening=eps, dv=0.5)
+    z = F.fourier_zeros(v, d, 0.0)
+    assert z.status == "ok" and len(z.zeros) == 2
+    q = np.array(z.zeros) * vsini
+    np.testing.assert_allclose(q, F.rotation_zeros(eps), rtol=1e-4)
+    assert q[0] == pytest.approx(q1_dravins_1990(eps), rel=2e-3)
+    if q_ref is not None:
+        np.testing.assert_allclose(q, q_ref, rtol=2e-3)
+
+
+def test_convolution_theorem_instrument_and_gaussian_macro_do_not_move_zeros():
+    # Intrinsic Gaussian, Gaussian instrument (R = 50 000) and isotropic Gaussian macroturbulence multiply the
+    # transform and add no zeros: v sin i unchanged within 0.5 % at high S/N (convolution theorem).
+    rng = np.random.default_rng(7)
+    for vsini in (20.0, 60.0):
+        v, d = line_profile(vsini, ew=12.0, intrinsic_width=2.0, resolution=R, macroturbulence=4.0,
+                            macro_kind="gaussian")
+        win = F.FourierWindow(v, d + 1e-4 * rng.standard_normal(v.size), 1e-4)
+        res = F.fourier_vsini([win], resolution=R, macroturbulence=4.0, macro_kind="gaussian", mc=20, rng=1)
+        assert res.vsini_kms == pytest.approx(vsini, rel=5e-3)
+        assert res.macro_correction == 1.0
+
+
+@pytest.mark.parametrize(("vsini", "zeta"), [(20.0, 4.0), (20.0, 10.0), (30.0, 10.0)])
+def test_radial_tangential_macro_correction(vsini, zeta):
+    # Lines built with the joint disc-integrated rotation + RT kernel (Gray 2005, ch. 17-18): after the
+    # documented correction v sin i is within 1 % (zeta <= 10 km/s, v sin i >= 20 km/s).
+    v, d = line_profile(vsini, intrinsic_width=1.7, resolution=R, macroturbulence=zeta, macro_kind="rt")
+    win = F.FourierWindow(v, d, 1e-5)
+    raw = F.fourier_vsini([win], resolution=R, mc=0)
+    fixed = F.fourier_vsini([win], resolution=R, mc=0, macroturbulence=zeta)
+    assert fixed.vsini_kms == pytest.approx(vsini, rel=0.01)
+    assert fixed.macro_correction > 1.0 and raw.vsini_kms < vsini
+    if zeta / vsini >= F.MACRO_RATIO_LIMIT:
+        assert "macro_shifts_zeros" in fixed.flags and "differential_candidate" not in fixed.flags
+    if (vsini, zeta) == (20.0, 10.0):
+        assert raw.vsini_kms < 0.99 * vsini  # uncorrected: more than 1 % low (zeros moved by the macroturbulence)
+        assert "macro_unknown" in raw.flags and "differential_candidate" not in raw.flags
+
+
+def test_macro_too_strong_for_zeros_is_flagged():
+    # zeta/vsini = 0.8: the joint kernel has no zeros left; a zero in the data cannot be calibrated.
+    v, d = line_profile(20.0, intrinsic_width=1.7, resolution=R, macroturbulence=16.0, macro_kind="rt")
+    res = F.fourier_vsini([F.FourierWindow(v, d, 1e-5)], resolution=R, mc=0, macroturbulence=16.0)
+    assert "macro_shifts_zeros" in res.flags and "differential_candidate" not in res.flags
+
+
+def test_differential_rotation_from_the_disk_integrator_lowers_q2_q1():
+    # Reiners & Schmitt 2002 (A&A 384, 155): solar-like differential rotation (alpha = 0.3, i = 60 deg) puts
+    # q2/q1 below the rigid range; the rigid disc (alpha = 0) stays inside it (independent integrator).
+    from vsini.surface import SurfaceModel, disk_line_profile
+
+    v = np.arange(-80.0, 80.0 + 1e-9, 0.5)
+    out = {}
+    for alpha in (0.0, 0.3):
+        model = SurfaceModel(v_eq_kms=40.0 / math.sin(math.radians(60.0)), inclination_deg=60.0, alpha=alpha)
+        prof = disk_line_profile(model, v, depth=0.6, intrinsic_width_kms=1.5)
+        out[alpha] = F.fourier_vsini([F.FourierWindow(v, 1.0 - prof, 1e-5, 0.0)], mc=0, macroturbulence=0.0)
+    lo, _, hi = out[0.0].rigid_range
+    assert lo <= out[0.0].q2_q1 <= hi and "differential_candidate" not in out[0.0].flags
+    assert out[0.0].vsini_kms == pytest.approx(40.0, rel=1e-3)
+    assert out[0.3].q2_q1 < lo - 0.1 and "differential_candidate" in out[0.3].flags
+
+
+# --------------------------------------------------------------------------------------------- noisy data
+
+
+def simulated(vsini, snr, seed, *, n_lines=10, resolution=R, **kw):
+    lines = [(5000.0 + 8.0 * k, 0.6) for k in range(n_lines)]
+    sp = simulate_spectrum(lines, wave_range=(4990.0, 5000.0 + 8.0 * n_lines + 5.0), step=0.03, vsini=vsini,
+                           resolution=resolution, snr=snr, rng=seed, intrinsic_width=4.0, **kw)
+    return sp, [ln[0] for ln in lines]
+
+
+@pytest.mark.parametrize("vsini", [18.0, 40.0])
+def test_injection_recovery_bias_below_one_percent(vsini):
+    # v sin i >= 3 c/R (18 km/s at R = 50 000) at S/N = 200: mean of seeded realisations within 1 %; each
+    # realisation carries a Monte Carlo error (~0.8 %), so 4 realisations measure the bias to ~0.4 %.
+    assert vsini >= 3 * C_KMS / R * 0.999
+    values = []
+    for seed in range(4):
+        sp, lines = simulated(vsini, 200.0, seed)
+        res = F.fourier_vsini(sp, lines=lines, resolution=R, rv=0.0, mc=0)
+        assert not res.is_limit and res.n_lines >= 8
+        values.append(res.vsini_kms)
+    assert np.mean(values) == pytest.approx(vsini, rel=0.01)
+
+
+def test_monte_carlo_errors_match_the_scatter_and_are_seeded():
+    sp, lines = simulated(30.0, 150.0, 5)
+    a = F.fourier_vsini(sp, lines=lines, resolution=R, rv=0.0, mc=60, rng=3)
+    b = F.fourier_vsini(sp, lines=lines, resolution=R, rv=0.0, mc=60, rng=3)
+    c = F.fourier_vsini(sp, lines=lines, resolution=R, rv=0.0, mc=60, rng=4)
+    assert a.vsini_err_kms == b.vsini_err_kms and a.vsini_err_kms != c.vsini_err_kms
+    assert a.vsini_kms == pytest.approx(30.0, abs=3 * a.vsini_err_kms)
+    assert a.mc == 60 and a.vsini_lines_kms == pytest.approx(30.0, abs=3 * a.vsini_lines_err_kms)
+    # the first-order error of one line against the scatter over seeded realisations
+    v, d = line_profile(30.0, ew=12.0, intrinsic_width=1.7, resolution=R, dv=2.0)
+    rng = np.random.default_rng(9)
+    found = [F.fourier_zeros(v, d + 0.005 * rng.standard_normal(v.size), 0.005, resolution=R) for _ in range(40)]
+    s1 = np.array([z.zeros[0] for z in found])
+    predicted = np.mean([z.zeros_err[0] for z in found])
+    assert 0.7 < predicted / s1.std(ddof=1) < 1.4
+
+
+def test_noise_only_returns_a_flag_not_a_value():
+    rng = np.random.default_rng(2)
+    w = np.arange(4990.0, 5085.0, 0.03)
+    sp = Spectrum(w, 1.0 + 0.005 * rng.standard_normal(w.size), np.full(w.size, 0.005), name="noise")
+    res = F.fourier_vsini(sp, lines=[5000.0 + 8.0 * k for k in range(10)], resolution=R, rv=0.0, mc=10, rng=1,
+                          half_width_kms=40.0)
+    assert res.vsini_kms is None and res.limit_kms is None and not res.is_limit
+    assert "fourier_noise" in res.flags
+    assert all(ln.status == "no_line" for ln in res.lines)
+    # automatic line detection finds nothing: the same flag, and nothing else
+    none = F.fourier_vsini(sp, resolution=R, mc=0)
+    assert none.flags == ("fourier_noise",) and none.vsini_kms is None and none.lines == ()
+
+
+def test_unresolved_input_returns_an_upper_limit():
+    sp, lines = simulated(1.0, 300.0, 8)
+    res = F.fourier_vsini(sp, lines=lines, resolution=R, rv=0.0, mc=0)
+    assert res.vsini_kms is None and res.is_limit and "fourier_unresolved" in res.flags
+    assert 1.0 < res.limit_kms < C_KMS / R
+    assert res.spectrum is not None and res.spectrum.expected is not None
+
+
+def test_low_snr_zero_gives_a_limit_with_the_noise_flag():
+    # a strongly broadened, weak line: the side lobe is buried, only a limit above c/R is left
+    v, d = line_profile(60.0, ew=3.0, intrinsic_width=1.7, resolution=R, dv=2.0)
+    rng = np.random.default_rng(1)
+    res = F.fourier_vsini([(v, d + 0.02 * rng.standard_normal(v.size), 0.02)], resolution=R, mc=0)
+    assert res.vsini_kms is None and res.is_limit and "fourier_noise" in res.flags
+    assert res.limit_kms > 60.0 and res.limit_kms > C_KMS / R
+
+
+def test_spectrum_windows_skip_blends_and_lines_outside():
+    sp, _ = simulated(20.0, 200.0, 1, n_lines=3)
+    wins, skipped = F.spectrum_windows(sp, [5000.0, 5008.0, 5008.5, 6000.0], rv=0.0, half_width_kms=50.0)
+    assert [w.label for w in wins] == ["5000.00"]
+    reasons = dict(skipped)
+    assert "blended" in reasons["5008.00"] and "blended" in reasons["5008.50"]
+    assert "outside the spectrum" in reasons["6000.00"]
+    with pytest.raises(MeasurementError, match="no usable line window"):
+        F.fourier_vsini(sp, lines=[6000.0], resolution=R)
+
+
+def test_spectrum_windows_automatic_width_and_rv():
+    sp, lines = simulated(30.0, 300.0, 2, rv=12.0)
+    wins, skipped = F.spectrum_windows(sp, lines)
+    assert len(wins) == 10 and not skipped
+    half = wins[0].velocity_kms[-1]
+    assert 2.0 * 30.0 < half < 4.0 * 30.0  # 1.8 FWHM + 5 px
+    assert abs(wins[0].centre_kms) < 1e-12 and not wins[0].noise_estimated
+
+
+def test_windows_from_tuples_objects_and_estimated_noise():
+    v, d = line_profile(30.0, intrinsic_width=1.7, resolution=R, dv=1.0)
+    rng = np.random.default_rng(3)
+    dn = d + 0.002 * rng.standard_normal(v.size)
+
+    class Win:
+        velocity = v
+        depression = dn
+        label = "object"
+
+    res = F.fourier_vsini([(v, dn), Win()], resolution=R, mc=0)
+    assert res.vsini_kms == pytest.approx(30.0, rel=0.02) and [ln.label for ln in res.lines] == ["window 0", "object"]
+    # DER_SNR scatter (Stoehr et al. 2008): right on continuum, conservative (line curvature adds) on a line
+    flat = F.FourierWindow(v, 0.002 * rng.standard_normal(v.size))
+    assert flat.noise_estimated and flat.noise[0] == pytest.approx(0.002, rel=0.2)  # ~150 px: ~9 % scatter
+    assert F.FourierWindow(v, dn).noise[0] > 0.9 * 0.002
+    json.dumps(res.as_dict())  # plain values only
+
+
+def test_window_fills_masked_pixels_and_uses_velocity_quantity():
+    import astropy.units as u
+
+    v, d = line_profile(30.0, intrinsic_width=1.7, dv=1.0)
+    d = d.copy()
+    d[10:14] = np.nan
+    win = F.FourierWindow(v * u.km / u.s, d, 1e-4, 0.0 * u.km / u.s)
+    assert win.n_filled == 4 and np.all(np.isfinite(win.depression))
+    assert F.fourier_vsini([win], mc=0).vsini_kms == pytest.approx(30.0, rel=1e-3)
+
+
+def test_weighted_mean_uses_the_larger_of_internal_and_scatter_errors():
+    # Bevington & Robinson 2003 (from memory): weights 1/e^2, internal error (sum w)^-1/2.
+    mean, err, scale = F._weighted_mean([10.0, 10.0, 10.0, 10.0], [1.0, 1.0, 1.0, 1.0])
+    assert mean == 10.0 and err == pytest.approx(0.5) and scale == 0.0
+    mean, err, scale = F._weighted_mean([8.0, 12.0, 8.0, 12.0], [0.1, 0.1, 0.1, 0.1])
+    # scatter-based: sqrt(sum w (x - mean)^2 / ((n - 1) sum w)) = std(ddof=1)/sqrt(n) for equal weights
+    assert mean == pytest.approx(10.0) and err == pytest.approx(np.std([8.0, 12.0, 8.0, 12.0], ddof=1) / 2.0)
+    assert scale == pytest.approx(err / 0.05)
+    assert F._weighted_mean([3.0], [0.2]) == (3.0, 0.2, 1.0)
+    assert F._weighted_mean([1.0, 3.0], [0.0, 0.0]) == pytest.approx((2.0, 1.0, 1.0))
+
+
+def test_plot_fourier_returns_axes():
+    import matplotlib.pyplot as plt
+
+    from vsini.plots import plot_fourier
+
+    sp, lines = simulated(30.0, 200.0, 1)
+    res = F.fourier_vsini(sp, lines=lines, resolution=R, rv=0.0, mc=0)
+    ax = plot_fourier(res, title="test")
+    assert ax.get_xlabel().startswith("frequency")
+    _, ax2 = plt.subplots()
+    assert plot_fourier(res, ax=ax2) is ax2
+    plt.close("all")
+    empty = F.fourier_vsini(Spectrum(np.linspace(5000, 5010, 200), np.ones(200)), resolution=R, mc=0)
+    with pytest.raises(InputError, match="no line was detected"):
+        plot_fourier(empty)
+
+
+# --------------------------------------------------------------------------------------------- errors
+
+
+@pytest.mark.parametrize(
+    ("args", "kwargs", "match"),
+    [
+        ((np.arange(20.0), np.zeros(19)), {}, "1-D of equal length"),
+        ((np.arange(10.0), np.zeros(10)), {}, "need at least 16"),
+        ((np.arange(20.0)[::-1], np.zeros(20)), {}, "strictly increasing"),
+        ((np.r_[np.arange(10.0), 20 + 2 * np.arange(10.0)], np.zeros(20)), {}, "resample onto a uniform"),
+        ((np.arange(20.0), np.zeros(20), -1.0), {}, "negative noise"),
+        ((np.arange(20.0), np.r_[np.full(6, np.nan), np.zeros(14)], 0.1), {}, "NaN \\(limit 25 %\\)"),
+        ((np.arange(20.0), np.zeros(20), 0.1, 50.0), {}, "lies outside the window"),
+    ],
+)
+def test_fourier_window_errors(args, kwargs, match):
+    with pytest.raises(InputError, match=match):
+        F.FourierWindow(*args, **kwargs)
+
+
+def test_fourier_vsini_argument_errors():
+    v, d = line_profile(30.0, intrinsic_width=1.7, dv=1.0)
+    w = [F.FourierWindow(v, d, 1e-4)]
+    with pytest.raises(InputError, match="macro_kind must be 'rt' or 'gaussian'"):
+        F.fourier_vsini(w, macro_kind="iso")
+    with pytest.raises(InputError, match="macroturbulence must be >= 0"):
+        F.fourier_vsini(w, macroturbulence=-1.0)
+    with pytest.raises(InputError, match="mc must be an integer >= 0"):
+        F.fourier_vsini(w, mc=2.5)
+    with pytest.raises(InputError, match="threshold must be positive"):
+        F.fourier_vsini(w, threshold=0.0)
+    with pytest.raises(InputError, match="no windows given"):
+        F.fourier_vsini([])
+    with pytest.raises(InputError, match="has no velocity and depression"):
+        F.fourier_vsini([object()])
+    with pytest.raises(InputError, match="count must be within 1..5"):
+        F.fourier_zeros(v, d, 1e-4, count=0)
+    single = F.fourier_vsini(w[0], mc=0)  # one window, not in a list
+    assert single.vsini_kms == pytest.approx(30.0, rel=1e-3)

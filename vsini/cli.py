@@ -1,0 +1,266 @@
+"""The ``vsini`` command line: parse, call the library, print. No physics here.
+
+Every :class:`~vsini.errors.VsiniError` becomes one line on standard error and exit code 2; an
+unexpected exception becomes one line too (exit 3) unless ``VSINI_DEBUG=1`` asks for the traceback.
+"""
+
+from __future__ import annotations
+
+import functools
+import json
+import math
+import os
+import sys
+from pathlib import Path
+from typing import Optional
+
+import typer
+
+from .errors import VsiniError
+
+__all__ = ["app", "main"]
+
+app = typer.Typer(
+    name="vsini",
+    help="Projected rotational velocities (v sin i) of stars from their spectra.",
+    no_args_is_help=True,
+    add_completion=False,
+    pretty_exceptions_enable=False,
+)
+
+
+def _fail(message, code=2):
+    typer.echo(f"vsini: error: {message}", err=True)
+    raise typer.Exit(code)
+
+
+def _guarded(fn):
+    """Turn library errors into one line and an exit code instead of a traceback."""
+
+    @functools.wraps(fn)
+    def wrapper(*args, **kwargs):
+        try:
+            return fn(*args, **kwargs)
+        except (typer.Exit, typer.Abort, SystemExit, KeyboardInterrupt):
+            raise
+        except VsiniError as e:
+            _fail(str(e), 2)
+        except Exception as e:  # a bug: still one line for the user
+            if os.environ.get("VSINI_DEBUG"):
+                raise
+            _fail(f"unexpected {type(e).__name__}: {e} (set VSINI_DEBUG=1 for the traceback)", 3)
+
+    return wrapper
+
+
+def _use_agg():
+    import matplotlib
+
+    matplotlib.use("Agg")
+
+
+def _json_safe(obj):
+    """Replace NaN/inf with None so the output is valid JSON."""
+    if isinstance(obj, dict):
+        return {k: _json_safe(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_json_safe(v) for v in obj]
+    if hasattr(obj, "item") and not isinstance(obj, (str, bytes)):
+        try:
+            obj = obj.item()
+        except (ValueError, AttributeError):
+            pass
+    if isinstance(obj, float) and not math.isfinite(obj):
+        return None
+    return obj
+
+
+def _print_json(obj):
+    typer.echo(json.dumps(_json_safe(obj), indent=2, allow_nan=False))
+
+
+def _parse_range(text):
+    from .errors import InputError
+
+    try:
+        a, b = (float(x) for x in text.split(":"))
+    except ValueError:
+        raise InputError(f"--range: cannot read {text!r}; write START:END in Angstrom, e.g. 5480:5540") from None
+    return a, b
+
+
+def _intrinsic(intrinsic_width, teff, microturbulence, element):
+    from .kernels import doppler_width
+
+    if intrinsic_width is not None:
+        return intrinsic_width
+    return doppler_width(teff, element=element, microturbulence=microturbulence)
+
+
+# ---------------------------------------------------------------------------------------------- simulate
+
+
+@app.command()
+@_guarded
+def simulate(
+    output: Path = typer.Option(..., "--output", "-o", help="File to write: .fits/.fit for FITS, .csv/.txt for text."),
+    lines: str = typer.Option(
+        "5500.0:0.6", help="Lines as 'centre:depth' pairs separated by ';' (centre in Angstrom, rest frame; depth of "
+        "the unbroadened intrinsic line, 0-1). Example: '6141.7:0.5;6162.2:0.7'."
+    ),
+    vsini: float = typer.Option(10.0, help="Projected rotational velocity v sin i, km/s."),
+    limb_darkening: str = typer.Option("0.6", help="Linear limb-darkening coefficient, or 'a,b' for the quadratic law."),
+    resolution: Optional[float] = typer.Option(
+        50000.0, help="Resolving power R of a Gaussian instrument profile (FWHM = c/R). 0 for none."
+    ),
+    lsf: Optional[Path] = typer.Option(None, help="Tabulated instrument profile (velocity km/s, response); replaces R."),
+    macroturbulence: float = typer.Option(0.0, help="Radial-tangential macroturbulence zeta, km/s."),
+    gaussian_macro: bool = typer.Option(False, help="Use isotropic Gaussian macroturbulence instead."),
+    intrinsic_width: Optional[float] = typer.Option(
+        None, help="Doppler width b of the intrinsic line, km/s (profile exp(-(v/b)^2)). Default: from --teff and "
+        "--microturbulence for an iron line."
+    ),
+    teff: float = typer.Option(5800.0, help="Temperature for the thermal width, K."),
+    microturbulence: float = typer.Option(1.0, help="Microturbulence xi, km/s."),
+    element: str = typer.Option("Fe", help="Element whose mass sets the thermal width."),
+    damping: float = typer.Option(0.0, help="Voigt damping parameter a = gamma/b of the intrinsic line (0: Gaussian)."),
+    rv: float = typer.Option(0.0, help="Radial velocity, km/s."),
+    snr: Optional[float] = typer.Option(None, help="Signal-to-noise ratio per pixel in the continuum (omit: noiseless)."),
+    seed: Optional[int] = typer.Option(None, help="Seed of the noise, for a reproducible spectrum."),
+    wave_range: str = typer.Option("5480:5520", "--range", help="First and last wavelength, Angstrom: START:END."),
+    step: float = typer.Option(0.02, help="Pixel step, Angstrom."),
+    name: str = typer.Option("simulated", help="Object name written into the file."),
+    plot: Optional[Path] = typer.Option(None, help="Also draw the spectrum to this figure file (.pdf, .png)."),
+):
+    """Write a synthetic rotationally broadened, continuum-normalised spectrum.
+
+    The line profile is the intrinsic line convolved with the limb-darkened rotation kernel,
+    macroturbulence and the instrument profile, averaged over each pixel.
+    """
+    from .io import write_spectrum
+    from .model import load_lsf
+    from .simulate import simulate_spectrum
+
+    table_lsf = load_lsf(lsf) if lsf else None
+    spec = simulate_spectrum(
+        lines,
+        wave_range=_parse_range(wave_range),
+        step=step,
+        vsini=vsini,
+        limb_darkening=limb_darkening,
+        resolution=resolution or None,
+        macroturbulence=macroturbulence,
+        macro_kind="gaussian" if gaussian_macro else "rt",
+        intrinsic_width=intrinsic_width,
+        teff=teff,
+        microturbulence=microturbulence,
+        element=element,
+        damping=damping,
+        rv=rv,
+        snr=snr,
+        rng=seed,
+        lsf=table_lsf,
+        name=name,
+    )
+    write_spectrum(spec, output)
+    typer.echo(f"wrote {output} ({spec.n_pixels} pixels, v sin i = {vsini:g} km/s)")
+    if plot:
+        _use_agg()
+        from .plots import plot_spectrum, save_figure
+
+        ax = plot_spectrum(spec, title=f"{name}: v sin i = {vsini:g} km/s")
+        save_figure(ax.figure, plot)
+        typer.echo(f"wrote {plot}")
+
+
+# ---------------------------------------------------------------------------------------------- kernel
+
+
+@app.command()
+@_guarded
+def kernel(
+    output: Path = typer.Option(..., "--output", "-o", help="Table to write (.ecsv, .csv or .fits)."),
+    vsini: float = typer.Option(10.0, help="v sin i, km/s."),
+    limb_darkening: str = typer.Option("0.6", help="Linear coefficient, or 'a,b' for the quadratic law."),
+    resolution: Optional[float] = typer.Option(None, help="Resolving power R of a Gaussian instrument profile."),
+    lsf: Optional[Path] = typer.Option(None, help="Tabulated instrument profile (velocity km/s, response)."),
+    macroturbulence: float = typer.Option(0.0, help="Radial-tangential macroturbulence zeta, km/s."),
+    gaussian_macro: bool = typer.Option(False, help="Use isotropic Gaussian macroturbulence instead."),
+    product: bool = typer.Option(
+        False, help="Multiply separate rotation and radial-tangential kernels (fast approximation) instead of "
+        "integrating them together over the disc."
+    ),
+    intrinsic_width: float = typer.Option(0.0, help="Doppler width b of the intrinsic Gaussian, km/s (0: none)."),
+    damping: float = typer.Option(0.0, help="Voigt damping parameter of the intrinsic profile."),
+    step: float = typer.Option(0.25, help="Velocity step of the table, km/s."),
+    plot: Optional[Path] = typer.Option(None, help="Figure of the kernel and its Fourier amplitude (.pdf, .png)."),
+):
+    """Write the composed broadening kernel and its Fourier amplitude.
+
+    The table has two parts in one file: columns velocity/kernel, and frequency/amplitude
+    (the transform sampled at the table's frequencies); zeros of the rotation transform are in the
+    metadata.
+    """
+    import numpy as np
+    from astropy.table import Table
+
+    from .model import Broadening, composed_kernel, load_lsf
+    from .report import write_table
+
+    b = Broadening(
+        vsini=vsini,
+        limb_darkening=limb_darkening,
+        resolution=resolution or None,
+        lsf=load_lsf(lsf) if lsf else None,
+        macroturbulence=macroturbulence,
+        macro_kind="gaussian" if gaussian_macro else "rt",
+        rt_mode="product" if product else "joint",
+        intrinsic_width=intrinsic_width,
+        damping=damping,
+    )
+    v, k = composed_kernel(b, step)
+    sigma = np.fft.rfftfreq(4 * v.size, step)[: v.size]
+    amp = np.abs(b.transform(sigma))
+    zeros = (b.limb_darkening.transform_zeros(3) / vsini).tolist() if vsini > 0 else []
+    t = Table()
+    t["velocity"] = v
+    t["velocity"].unit = "km/s"
+    t["kernel"] = k
+    t["kernel"].unit = "s/km"
+    t["frequency"] = sigma
+    t["frequency"].unit = "s/km"
+    t["amplitude"] = amp
+    t.meta.update(
+        {
+            "vsini_kms": vsini,
+            "limb_darkening": b.limb_darkening.label,
+            "resolution": resolution,
+            "macroturbulence_kms": macroturbulence,
+            "macro_kind": b.macro_kind,
+            "rt_mode": b.rt_mode,
+            "intrinsic_width_kms": intrinsic_width,
+            "damping": damping,
+            "rotation_zeros_s_per_km": zeros,
+            "note": "kernel sampled at points; amplitude = |Fourier transform| of the composed kernel",
+        }
+    )
+    write_table(t, output)
+    typer.echo(f"wrote {output} ({v.size} samples, half extent {v[-1]:.1f} km/s)")
+    if zeros:
+        typer.echo("rotation zeros (s/km): " + ", ".join(f"{z:.5f}" for z in zeros))
+    if plot:
+        _use_agg()
+        from .plots import plot_kernel, save_figure
+
+        axes = plot_kernel(v, k, sigma, amp, zeros=zeros[:2], title=f"v sin i = {vsini:g} km/s, {b.limb_darkening.label}")
+        save_figure(axes[0].figure, plot)
+        typer.echo(f"wrote {plot}")
+
+
+def main():  # pragma: no cover - entry point
+    """Run the command line (``python -m vsini``)."""
+    app()
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

@@ -1,0 +1,55 @@
+"""Result flags: short lower-case words shared by the results, the tables, the command line and the docs.
+
+Each estimator puts the words that apply into its result's ``flags`` tuple. :data:`FLAGS` is the one
+place where a flag is defined, with a one-line meaning; add a new flag here before using it.
+"""
+
+from __future__ import annotations
+
+from .errors import InputError
+
+__all__ = ["FLAGS", "describe", "check_flags"]
+
+#: Every flag and its meaning (one line each).
+FLAGS: dict[str, str] = {
+    # profile fit (vsini.fit)
+    "unresolved": "rotation not resolved: v sin i is given as an upper limit, not as a value",
+    "low_snr": "signal-to-noise ratio below 20 per pixel: the result is less reliable",
+    "few_lines": "fewer than 3 lines were used",
+    "lines_dropped": "some lines were left out (outside the spectrum, in a gap, not detected, emission or blended)",
+    "no_lines": "no usable line: nothing was measured",
+    "fit_failed": "the minimiser did not converge or could not estimate uncertainties",
+    "at_bound": "a fitted parameter ended at a bound of its allowed range",
+    "macro_degenerate": "v sin i and macroturbulence are strongly correlated (|r| > 0.9): their split is unreliable",
+    "poor_fit": "reduced chi-square above 3 with given uncertainties: the model does not describe the lines well",
+    "undersampled": "fewer than 2 pixels per resolution element",
+    # Fourier first-zero estimator (vsini.fourier)
+    "fourier_noise": "Fourier: no zero stands clear of the noise: only an upper limit (or nothing, if no line) is given",
+    "fourier_unresolved": "Fourier: no zero below the frequency where the instrument's transform sinks into the noise; upper limit below c/R",
+    "fourier_no_q2": "Fourier: the second zero is not clear of the noise: no q2/q1",
+    "differential_candidate": "Fourier: q2/q1 more than 2 sigma below the rigid-rotation range of the limb-darkening law: solar-like differential rotation candidate",
+    "macro_shifts_zeros": "Fourier: radial-tangential macroturbulence comparable to v sin i moves the zeros (corrected with the joint kernel where possible); q2/q1 not used for differential rotation",
+    "macro_unknown": "Fourier: q2/q1 is low but no macroturbulence was given: radial-tangential macroturbulence could lower it too",
+}
+
+
+def describe(flag):
+    """The one-line meaning of ``flag``.
+
+    Raises
+    ------
+    InputError
+        For a word that is not in :data:`FLAGS`.
+    """
+    try:
+        return FLAGS[flag]
+    except KeyError:
+        raise InputError(f"unknown flag {flag!r}; known flags: {', '.join(sorted(FLAGS))}") from None
+
+
+def check_flags(flags):
+    """Return ``flags`` as a sorted tuple of unique words after checking each is defined in :data:`FLAGS`."""
+    out = tuple(sorted(set(flags)))
+    for f in out:
+        describe(f)
+    return out

@@ -1,0 +1,279 @@
+"""Figures for papers: kernels, spectra, line fits, Fourier amplitudes, survey comparisons.
+
+Every function takes ``ax=None`` (a new figure is made when None) and returns the Axes it drew on,
+so figures can be composed. Sizes follow journal column widths (:data:`COLUMN_WIDTH_IN`,
+:data:`PAGE_WIDTH_IN`); colours come from a colour-blind-safe palette (Okabe & Ito 2008, "Color
+Universal Design"). matplotlib is imported here only, never in the physics modules.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+__all__ = [
+    "COLUMN_WIDTH_IN",
+    "PAGE_WIDTH_IN",
+    "PALETTE",
+    "new_axes",
+    "save_figure",
+    "plot_kernel",
+    "plot_spectrum",
+    "plot_fourier",
+    "plot_line_fits",
+    "plot_chi2_map",
+]
+
+#: One journal column and a full page width, inches (A&A / AAS / MNRAS are all close to these; common practice).
+COLUMN_WIDTH_IN = 3.5
+PAGE_WIDTH_IN = 7.2
+#: Okabe & Ito (2008) colour-blind-safe palette.
+PALETTE = ["#000000", "#E69F00", "#56B4E9", "#009E73", "#F0E442", "#0072B2", "#D55E00", "#CC79A7"]
+
+_RC = {
+    "font.size": 8,
+    "axes.labelsize": 8,
+    "legend.fontsize": 7,
+    "xtick.labelsize": 7,
+    "ytick.labelsize": 7,
+    "axes.linewidth": 0.6,
+    "lines.linewidth": 1.0,
+    "savefig.dpi": 300,
+    "axes.prop_cycle": None,  # set below
+}
+
+
+def _style():
+    import matplotlib as mpl
+    from cycler import cycler
+
+    rc = dict(_RC)
+    rc["axes.prop_cycle"] = cycler(color=PALETTE[1:] + PALETTE[:1])
+    return mpl.rc_context(rc)
+
+
+def new_axes(nrows=1, ncols=1, *, width=COLUMN_WIDTH_IN, height=None, **kwargs):
+    """A figure of journal width with the project's style; returns ``(fig, axes)``."""
+    import matplotlib.pyplot as plt
+
+    with _style():
+        height = height if height is not None else width * 0.75 * nrows / max(ncols, 1)
+        fig, axes = plt.subplots(nrows, ncols, figsize=(width, height), **kwargs)
+    return fig, axes
+
+
+def save_figure(fig, path, *, also_png=False):
+    """Save ``fig`` (format by extension; PDF is vector) and close it. ``also_png`` adds a PNG beside it."""
+    from pathlib import Path
+
+    import matplotlib.pyplot as plt
+
+    path = Path(path)
+    with _style():
+        fig.savefig(path, bbox_inches="tight")
+        if also_png and path.suffix.lower() != ".png":
+            fig.savefig(path.with_suffix(".png"), bbox_inches="tight", dpi=200)
+    plt.close(fig)
+    return path
+
+
+def plot_kernel(velocity, kernel, sigma, amplitude, *, title=None, zeros=None, axes=None):
+    """The composed kernel (left) and its Fourier amplitude on a log scale (right).
+
+    Parameters
+    ----------
+    velocity, kernel : ndarray
+        Kernel samples (km/s, per km/s).
+    sigma, amplitude : ndarray
+        Frequency (s/km) and |transform|.
+    zeros : sequence of float, optional
+        Frequencies of the rotation zeros to mark.
+    axes : pair of Axes, optional
+
+    Returns
+    -------
+    (Axes, Axes)
+    """
+    if axes is None:
+        _, axes = new_axes(1, 2, width=7.2, height=2.6, constrained_layout=True)
+    with _style():
+        a0, a1 = axes
+        a0.plot(velocity, kernel, color=PALETTE[5])
+        a0.set_xlabel("velocity (km s$^{-1}$)")
+        a0.set_ylabel("kernel (per km s$^{-1}$)")
+        a0.axhline(0, color="0.7", lw=0.5)
+        pos = sigma > 0
+        a1.semilogy(sigma[pos], np.clip(amplitude[pos], 1e-12, None), color=PALETTE[5])
+        for z in zeros or ():
+            a1.axvline(z, color=PALETTE[6], ls="--", lw=0.7)
+        a1.set_xlabel(r"frequency $\sigma$ (s km$^{-1}$)")
+        a1.set_ylabel("|transform|")
+        a1.set_ylim(1e-6, 1.5)
+        if title:
+            a0.set_title(title, fontsize=8, loc="left")
+    return axes
+
+
+def plot_spectrum(spectrum, *, ax=None, title=None, windows=None):
+    """A spectrum (flux against wavelength) with optional shaded line windows ``[(lo, hi), ...]`` (Angstrom)."""
+    if ax is None:
+        _, ax = new_axes(width=PAGE_WIDTH_IN, height=2.4, constrained_layout=True)
+    with _style():
+        good = ~np.asarray(spectrum.mask)
+        flux = np.where(good, spectrum.flux, np.nan)
+        ax.plot(spectrum.wavelength, flux, color=PALETTE[0], lw=0.6, drawstyle="steps-mid")
+        for lo, hi in windows or ():
+            ax.axvspan(lo, hi, color=PALETTE[2], alpha=0.15, lw=0)
+        ax.set_xlabel(r"wavelength ($\mathrm{\AA}$)")
+        ax.set_ylabel("normalised flux")
+        if title:
+            ax.set_title(title, fontsize=8, loc="left")
+    return ax
+
+
+def plot_fourier(result, *, ax=None, title=None):
+    """Fourier amplitude of the mean line profile (log scale) with its zeros, noise level and expected transform.
+
+    Parameters
+    ----------
+    result : vsini.fourier.FourierResult
+        Needs ``result.spectrum`` (always set when a line was detected).
+    ax : matplotlib Axes, optional
+    title : str, optional
+
+    Returns
+    -------
+    Axes
+
+    Notes
+    -----
+    Drawn: :math:`|T(\\sigma)|` of the EW-normalised mean profile; the accepted zeros (dashed); the rms
+    noise of the amplitude (dotted); the frequency range beyond the usable limit (shaded); and the
+    transform of rotation x instrument x pixel (x macroturbulence) for the derived v sin i, or for the upper
+    limit when only a limit is known. The intrinsic line profile is not in the expected curve, so the data
+    fall below it at high frequency.
+    """
+    from .errors import InputError
+
+    spec = result.spectrum
+    if spec is None:
+        raise InputError("plot_fourier: the result has no transform (no line was detected); nothing to draw")
+    if ax is None:
+        _, ax = new_axes(width=COLUMN_WIDTH_IN, height=2.6, constrained_layout=True)
+    with _style():
+        pos = spec.sigma > 0
+        ax.semilogy(spec.sigma[pos], np.clip(spec.amplitude[pos], 1e-6, None), color=PALETTE[0], lw=0.8,
+                    label="mean profile")
+        if spec.expected is not None:
+            lab = "expected, v sin i = {:.1f} km/s".format(result.vsini_kms) if result.vsini_kms is not None else (
+                "expected at the limit {:.1f} km/s".format(result.limit_kms))
+            ax.semilogy(spec.sigma[pos], np.clip(spec.expected[pos], 1e-6, None), color=PALETTE[5], lw=0.8,
+                        ls="-", alpha=0.8, label=lab)
+        if np.isfinite(spec.noise_level) and spec.noise_level > 0:
+            ax.axhline(spec.noise_level, color=PALETTE[6], ls=":", lw=0.8, label="noise rms")
+        for i, z in enumerate(s for s in (result.sigma1, result.sigma2) if s is not None):
+            ax.axvline(z, color=PALETTE[3], ls="--", lw=0.7, label="zeros" if i == 0 else None)
+        top = float(spec.sigma[-1])
+        if np.isfinite(result.sigma_max) and result.sigma_max < top:
+            ax.axvspan(result.sigma_max, top, color="0.85", lw=0, zorder=0, label="beyond usable range")
+        ax.set_xlim(0.0, top)
+        floor = max(1e-4, 0.3 * spec.noise_level) if np.isfinite(spec.noise_level) else 1e-4
+        ax.set_ylim(floor, 1.5)
+        ax.set_xlabel(r"frequency $\sigma$ (s km$^{-1}$)")
+        ax.set_ylabel("|transform| (normalised)")
+        ax.legend(loc="upper right", frameon=False)
+        if title:
+            ax.set_title(title, fontsize=8, loc="left")
+    return ax
+
+
+# --------------------------------------------------------------------------------------------- profile fit
+# (functions for vsini.fit results)
+
+
+def plot_line_fits(result, *, axes=None, ncols=4):
+    """Every fitted window of a :class:`vsini.fit.FitResult`: data, model and residuals.
+
+    Parameters
+    ----------
+    result : FitResult
+    axes : (2 * nrows, ncols) array of Axes, optional
+        Profile panels on even rows, residual panels below them on odd rows.
+    ncols : int
+        Windows per row of the figure.
+
+    Returns
+    -------
+    ndarray of Axes
+        The panels drawn (unused ones are hidden).
+    """
+    fits = result.lines
+    ncols = max(1, min(ncols, len(fits)))
+    nrows = -(-len(fits) // ncols)
+    if axes is None:
+        _, axes = new_axes(2 * nrows, ncols, width=PAGE_WIDTH_IN, height=2.2 * nrows + 0.4, squeeze=False,
+                           constrained_layout=True, gridspec_kw={"height_ratios": [3, 1] * nrows})
+    axes = np.asarray(axes).reshape(2 * nrows, ncols)
+    with _style():
+        for k, ax in enumerate(axes[0::2].ravel()):
+            res_ax = axes[2 * (k // ncols) + 1, k % ncols]
+            if k >= len(fits):
+                ax.set_visible(False)
+                res_ax.set_visible(False)
+                continue
+            lf = fits[k]
+            ax.errorbar(lf.velocity_kms, lf.flux, yerr=lf.flux_err, fmt=".", ms=2, lw=0.4, color=PALETTE[0],
+                        label="data")
+            ax.plot(lf.velocity_kms, lf.model, color=PALETTE[6], lw=0.9, label="model")
+            ax.set_title(" + ".join(ln.label for ln in lf.lines), fontsize=7, loc="left")
+            ax.tick_params(labelbottom=False)
+            res_ax.axhline(0, color="0.6", lw=0.5)
+            res_ax.plot(lf.velocity_kms, (lf.flux - lf.model) / lf.flux_err, ".", ms=2, color=PALETTE[5])
+            res_ax.set_xlabel("velocity (km s$^{-1}$)")
+            if k % ncols == 0:
+                ax.set_ylabel("flux / continuum")
+                res_ax.set_ylabel("resid. ($\\sigma$)")
+        first = axes[0, 0]
+        if result.is_upper_limit:
+            text = f"v sin i < {result.upper_limit_kms:.2f} km/s (upper limit)"
+        else:
+            text = f"v sin i = {result.vsini_kms:.2f} $\\pm$ {result.vsini_err_kms:.2f} km/s"
+        first.legend(loc="lower right", frameon=False, fontsize=6)
+        first.figure.suptitle(f"{result.name}: {text}" if result.name else text, fontsize=8, x=0.01, ha="left")
+    return axes
+
+
+def plot_chi2_map(cmap, *, ax=None):
+    """Chi-square map over (v sin i, macroturbulence) with 1, 2 and 3 sigma joint contours.
+
+    Parameters
+    ----------
+    cmap : vsini.fit.Chi2Map
+    ax : Axes, optional
+
+    Returns
+    -------
+    Axes
+
+    Notes
+    -----
+    Contours at :math:`\\Delta\\chi^2` = 2.30, 6.18 and 11.8 above the minimum: the 68.3, 95.4 and
+    99.73 % regions of two jointly estimated parameters (Press et al. 2007, Numerical Recipes, 3rd ed.,
+    section 15.6).
+    """
+    if ax is None:
+        _, ax = new_axes(width=COLUMN_WIDTH_IN, height=COLUMN_WIDTH_IN * 0.85, constrained_layout=True)
+    with _style():
+        d = cmap.chi2 - cmap.chi2_min
+        mesh = ax.pcolormesh(cmap.vsini_kms, cmap.macro_kms, np.log10(1.0 + d), shading="auto", cmap="Greys_r")
+        levels = [cmap.levels[k] for k in sorted(cmap.levels)]
+        cs = ax.contour(cmap.vsini_kms, cmap.macro_kms, d, levels=levels, colors=[PALETTE[6], PALETTE[1], PALETTE[2]],
+                        linewidths=0.9)
+        ax.clabel(cs, fmt={lv: f"{k}$\\sigma$" for k, lv in zip(sorted(cmap.levels), levels, strict=True)}, fontsize=6)
+        ax.plot(*cmap.best, "+", color=PALETTE[6], ms=8)
+        ax.set_xlabel("v sin i (km s$^{-1}$)")
+        ax.set_ylabel("macroturbulence $\\zeta_{RT}$ (km s$^{-1}$)")
+        cb = ax.figure.colorbar(mesh, ax=ax)
+        cb.set_label("log$_{10}$(1 + $\\Delta\\chi^2$)" + (" (scaled)" if cmap.scaled else ""))
+        if cmap.name:
+            ax.set_title(cmap.name, fontsize=8, loc="left")
+    return ax
