@@ -257,6 +257,119 @@ def kernel(
         typer.echo(f"wrote {plot}")
 
 
+# ---------------------------------------------------------------------------------------------- measure
+
+
+def _macro_option(text):
+    from .errors import InputError
+
+    t = text.strip().lower()
+    if t == "free":
+        return "free"
+    if t in ("off", "none", "0"):
+        return None
+    try:
+        value = float(t)
+    except ValueError:
+        raise InputError(f"--macroturbulence: write 'free', 'off' or a value in km/s, got {text!r}") from None
+    if not value >= 0:
+        raise InputError(f"--macroturbulence: the value must be >= 0 km/s, got {text!r}")
+    return value
+
+
+def _fmt(value, err=None, digits=2):
+    if value is None or not math.isfinite(value):
+        return "--"
+    if err is None or not math.isfinite(err):
+        return f"{value:.{digits}f}"
+    return f"{value:.{digits}f} +/- {err:.{digits}f}"
+
+
+def _print_measurement(m, spectrum_name):
+    from .flags import describe
+
+    r = m.row
+    typer.echo(f"star: {r['star']}  ({spectrum_name})")
+    if r["vsini_adopted_is_limit"]:
+        typer.echo(f"  v sin i (adopted): < {_fmt(r['vsini_adopted'])} km/s  UPPER LIMIT ({r['adopted_method']})")
+    else:
+        typer.echo(f"  v sin i (adopted): {_fmt(r['vsini_adopted'], r['vsini_adopted_err'])} km/s  ({r['adopted_method']})")
+    fit_txt = _fmt(r["vsini_fit"], r["vsini_fit_err"])
+    if math.isfinite(r["vsini_fit_upper_limit"]):
+        fit_txt = f"< {r['vsini_fit_upper_limit']:.2f} (upper limit)"
+    four_txt = _fmt(r["vsini_fourier"], r["vsini_fourier_err"])
+    if math.isfinite(r["vsini_fourier_upper_limit"]):
+        four_txt = f"< {r['vsini_fourier_upper_limit']:.2f} (upper limit)"
+    typer.echo(f"  profile fit:       {fit_txt} km/s")
+    typer.echo(f"  Fourier zero:      {four_txt} km/s")
+    if math.isfinite(r["difference_sigma"]):
+        typer.echo(f"  fit - Fourier:     {r['difference_sigma']:+.2f} sigma")
+    typer.echo(f"  q2/q1:             {_fmt(r['q2_q1'], r['q2_q1_err'], 3)}")
+    typer.echo(f"  macroturbulence:   {_fmt(r['macroturbulence'], r['macroturbulence_err'])} km/s")
+    typer.echo(f"  radial velocity:   {_fmt(r['rv'])} km/s")
+    typer.echo(f"  lines used:        {r['n_lines']}    S/N per pixel: {_fmt(r['snr'], digits=0)}")
+    if m.fit is not None and m.fit.dropped:
+        for d in m.fit.dropped:
+            typer.echo(f"    dropped {d.line.label}: {d.reason}")
+    flags = r["flags"].split()
+    typer.echo(f"  flags:             {', '.join(flags) if flags else 'none'}")
+    for f in flags:
+        typer.echo(f"    {f}: {describe(f)}")
+    if r["error"]:
+        typer.echo(f"  note: {r['error']}")
+
+
+@app.command()
+@_guarded
+def measure(
+    spectrum: Path = typer.Argument(..., help="Spectrum file (FITS image or table, CSV or text)."),
+    resolution: Optional[float] = typer.Option(None, help="Resolving power R of the spectrograph (FWHM = c/R)."),
+    lsf: Optional[Path] = typer.Option(None, help="Tabulated instrument profile (velocity km/s, response); replaces R."),
+    limb_darkening: str = typer.Option("0.6", help="Linear coefficient (0.6 is usual in the optical), or 'a,b'."),
+    lines: Optional[str] = typer.Option(
+        None, help="Line centres in Angstrom (air, rest frame) separated by ';', or a shipped line-set name. "
+        "Default: detect isolated lines."
+    ),
+    method: str = typer.Option("both", help="fit, fourier or both."),
+    macroturbulence: str = typer.Option("free", help="'free' (fitted), 'off', or a fixed value in km/s."),
+    teff: Optional[float] = typer.Option(None, help="Effective temperature, K (sets the thermal line width)."),
+    rv: Optional[float] = typer.Option(None, help="Radial velocity, km/s (default: measured)."),
+    mc: int = typer.Option(0, help="Monte Carlo noise realisations for the uncertainties (0: from the fit)."),
+    seed: Optional[int] = typer.Option(None, help="Seed for the Monte Carlo realisations."),
+    as_json: bool = typer.Option(False, "--json", help="Print one JSON object with the result columns."),
+    plot: Optional[Path] = typer.Option(None, help="Figure of the line fits and the Fourier amplitudes (.pdf, .png)."),
+):
+    """Measure v sin i of one star by profile fitting and by the Fourier first zero."""
+    from .compare import measure_star
+    from .errors import InputError
+    from .io import read_spectrum
+    from .model import load_lsf
+
+    if method not in ("fit", "fourier", "both"):
+        raise InputError(f"--method must be fit, fourier or both, got {method!r}")
+    if resolution is None and lsf is None:
+        typer.echo("vsini: warning: no --resolution or --lsf given: the instrument profile is ignored, so the "
+                   "fitted v sin i absorbs the instrumental width (an overestimate)", err=True)
+    spec = read_spectrum(spectrum)
+    m = measure_star(
+        spec, name=spec.name or spectrum.stem, resolution=resolution, lsf=load_lsf(lsf) if lsf else None,
+        limb_darkening=limb_darkening, lines=lines, teff=teff, rv=rv, macroturbulence=_macro_option(macroturbulence),
+        method=method, mc=mc, rng=seed,
+    )
+    if as_json:
+        _print_json(m.row | {"spectrum": str(spectrum), "flags": m.row["flags"].split()})
+    else:
+        _print_measurement(m, spectrum.name)
+    if plot:
+        _use_agg()
+        from .plots import save_figure, star_figure
+
+        fig = star_figure(m, title=m.row["star"])
+        save_figure(fig, plot)
+        if not as_json:
+            typer.echo(f"wrote {plot}")
+
+
 def main():  # pragma: no cover - entry point
     """Run the command line (``python -m vsini``)."""
     app()

@@ -312,7 +312,7 @@ def fit_vsini(spectrum, *, lines=None, resolution=None, limb_darkening=0.6, macr
         if excess > 8.0:
             emission[ln] = f"emission: the flux rises {excess:.0f} sigma above the continuum"
     if emission and len(emission) == len(line_list):
-        raise _no_lines(name, "the lines are in emission, not absorption", tuple(screened_items(emission)))
+        raise _no_lines(name, "the lines are in emission, not absorption", tuple(_dropped_items(emission)))
     g_fwhm = _FWHM_PER_B * math.hypot(b_ins, b_guess)
     excess = fwhm**2 - g_fwhm**2 if np.isfinite(fwhm) else -1.0
     vsini0 = math.sqrt(excess) / rotation_fwhm_factor(ld) if excess > 0 else 0.5 * max(b_ins, step)
@@ -329,7 +329,7 @@ def fit_vsini(spectrum, *, lines=None, resolution=None, limb_darkening=0.6, macr
         merge = 0.25 * math.hypot(kfac * state["vsini"], _FWHM_PER_B * gb)
         windows, dropped_x = extract_windows(spectrum, active, rv=state["rv"], half_width=hw, merge_kms=merge)
         if not windows:
-            raise _no_lines(name, "no usable line", tuple(screened_items(screened)) + dropped_x)
+            raise _no_lines(name, "no usable line", tuple(_dropped_items(screened)) + dropped_x)
         widths = None if free_b else [b_of(ln) for win in windows for ln in win.lines]
         model = JointModel(windows, limb_darkening=ld, resolution=resolution, lsf=lsf, intrinsic_widths=widths,
                            macro_kind=macro_kind)
@@ -348,7 +348,7 @@ def fit_vsini(spectrum, *, lines=None, resolution=None, limb_darkening=0.6, macr
                     ew_guess = {}
                     continue
                 screened.update(bad)
-                raise _no_lines(name, "no usable line", tuple(screened_items(screened)) + dropped_x)
+                raise _no_lines(name, "no usable line", tuple(_dropped_items(screened)) + dropped_x)
             screened.update(bad)
             active = [ln for ln in active if not any(_covers(b, ln) for b in bad)]
             continue
@@ -356,13 +356,12 @@ def fit_vsini(spectrum, *, lines=None, resolution=None, limb_darkening=0.6, macr
                                    state["macro"], step_kms=step)
         if 0.7 * hw < new_hw < 1.2 * hw:  # the windows already fit the measured width (margins are generous)
             break
-    dropped = tuple(screened_items(screened)) + dropped_x
-    return _build_result(spectrum, model, res, sigma, scale, dropped, ld, resolution, macro_mode, free_b,
-                         mc, rng, detected)
+    dropped = tuple(_dropped_items(screened)) + dropped_x
+    return _build_result(spectrum, model, res, sigma, scale, dropped, ld, resolution, macro_mode, free_b, mc, rng)
 
 
-def screened_items(screened):
-    """DroppedLine objects from a ``{line: reason}`` mapping (helper of :func:`fit_vsini`)."""
+def _dropped_items(screened):
+    """DroppedLine objects from a ``{line: reason}`` mapping."""
     return [DroppedLine(ln, why) for ln, why in screened.items()]
 
 
@@ -442,7 +441,7 @@ def detection_limit(model, values, free, sigma, *, n_sigma=3.0):
     return math.sqrt(n_sigma * sigma_s), sigma_s
 
 
-def _build_result(spectrum, model, res, sigma, scale, dropped, ld, resolution, macro_mode, free_b, mc, rng, detected):
+def _build_result(spectrum, model, res, sigma, scale, dropped, ld, resolution, macro_mode, free_b, mc, rng):
     values = res.params.valuesdict()
     free = tuple(n for n, p in res.params.items() if p.vary)
     redchi = float(res.redchi)

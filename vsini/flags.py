@@ -30,6 +30,12 @@ FLAGS: dict[str, str] = {
     "differential_candidate": "Fourier: q2/q1 more than 2 sigma below the rigid-rotation range of the limb-darkening law: solar-like differential rotation candidate",
     "macro_shifts_zeros": "Fourier: radial-tangential macroturbulence comparable to v sin i moves the zeros (corrected with the joint kernel where possible); q2/q1 not used for differential rotation",
     "macro_unknown": "Fourier: q2/q1 is low but no macroturbulence was given: radial-tangential macroturbulence could lower it too",
+    # comparison and adoption (vsini.compare)
+    "methods_disagree": "the profile fit and the Fourier first zero differ by more than 3 combined sigma: the adopted error is widened to cover both",
+    "fourier_only": "the profile fit failed: the adopted value is the Fourier first-zero estimate",
+    "fourier_failed": "the Fourier first-zero method could not be run (see the error column)",
+    "not_measured": "neither method gave a value or a limit",
+    "failed": "the star could not be processed at all (see the error column)",
 }
 
 

@@ -21,6 +21,7 @@ __all__ = [
     "plot_fourier",
     "plot_line_fits",
     "plot_chi2_map",
+    "star_figure",
 ]
 
 #: One journal column and a full page width, inches (A&A / AAS / MNRAS are all close to these; common practice).
@@ -277,3 +278,56 @@ def plot_chi2_map(cmap, *, ax=None):
         if cmap.name:
             ax.set_title(cmap.name, fontsize=8, loc="left")
     return ax
+
+
+# --------------------------------------------------------------------------------------------- one star, both methods
+
+
+def star_figure(measurement, *, title=None, ncols=4):
+    """Diagnostic figure of one star: every fitted line with residuals, and the Fourier amplitude.
+
+    Parameters
+    ----------
+    measurement : vsini.compare.StarMeasurement
+    title : str, optional
+    ncols : int
+        Line panels per row.
+
+    Returns
+    -------
+    matplotlib Figure
+    """
+    import matplotlib.pyplot as plt
+
+    fit, four = measurement.fit, measurement.fourier
+    n_fit = len(fit.lines) if fit is not None and fit.lines else 0
+    has_four = four is not None and four.spectrum is not None
+    ncols = max(1, min(ncols, n_fit)) if n_fit else 1
+    nrows = -(-n_fit // ncols) if n_fit else 0
+    height = 2.0 * nrows + (2.4 if has_four else 0.0) + 0.5
+    with _style():
+        fig = plt.figure(figsize=(PAGE_WIDTH_IN, max(height, 2.0)), constrained_layout=True)
+        ratios = [3, 1] * nrows + ([4] if has_four else [])
+        if not ratios:
+            ax = fig.add_subplot()
+            ax.text(0.5, 0.5, "nothing measured: " + (measurement.row.get("error") or "no usable line"),
+                    ha="center", va="center", wrap=True, fontsize=8)
+            ax.set_axis_off()
+            return fig
+        grid = fig.add_gridspec(len(ratios), ncols, height_ratios=ratios)
+        if n_fit:
+            axes = np.array([[fig.add_subplot(grid[r, c]) for c in range(ncols)] for r in range(2 * nrows)])
+            plot_line_fits(fit, axes=axes, ncols=ncols)
+        if has_four:
+            plot_fourier(four, ax=fig.add_subplot(grid[len(ratios) - 1, :]))
+        row = measurement.row
+        if row.get("vsini_adopted_is_limit"):
+            summary = f"v sin i < {row['vsini_adopted']:.2f} km/s (upper limit)"
+        elif np.isfinite(row.get("vsini_adopted", np.nan)):
+            summary = f"v sin i = {row['vsini_adopted']:.2f} $\\pm$ {row['vsini_adopted_err']:.2f} km/s ({row['adopted_method']})"
+        else:
+            summary = "v sin i not measured"
+        flags = row.get("flags", "")
+        fig.suptitle(f"{title or row.get('star', '')}: {summary}" + (f"   [{flags}]" if flags else ""),
+                     fontsize=8, x=0.01, ha="left")
+    return fig
