@@ -1,4 +1,4 @@
-"""Tests of vsini.inclination: the inclination posterior and the deprojection of v sin i distributions.
+"""Tests of vsini.inclination (the inclination posterior) and vsini.deprojection (v sin i distributions).
 
 Sources of the checks are given beside each one. Simulated stars are drawn here with explicit seeds.
 """
@@ -9,16 +9,13 @@ import pytest
 from astropy.table import MaskedColumn, QTable, Table
 from scipy import integrate, stats
 
+from vsini.deprojection import deproject, projection_cdf, projection_kernel, projection_matrix
 from vsini.errors import InputError
 from vsini.inclination import (
     VEQ_KMS_PER_RSUN_PER_DAY,
-    deproject,
     inclination_samples,
     infer_inclination,
     infer_table,
-    projection_cdf,
-    projection_kernel,
-    projection_matrix,
 )
 
 Q_LO, Q_MED, Q_HI = 0.158655, 0.5, 0.841345  # -1, 0, +1 sigma quantiles of a Gaussian

@@ -67,3 +67,22 @@ def test_physics_modules_do_not_import_matplotlib():
 def test_version_is_set():
     assert vsini.__version__ != "0.0.0+unknown"
     assert np.__version__  # the numerical stack imports
+
+
+def test_flag_and_command_pages_are_current():
+    """docs/flags.md is generated from vsini.flags; docs/commands.md names every command."""
+    import importlib.util
+    from pathlib import Path
+
+    docs = Path(__file__).resolve().parents[1] / "docs"
+    spec = importlib.util.spec_from_file_location("make_docs", docs / "make_docs.py")
+    make_docs = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(make_docs)
+    assert (docs / "flags.md").read_text() == make_docs.flags_page(), "run python docs/make_docs.py"
+    page = (docs / "commands.md").read_text()
+    import typer
+
+    from vsini.cli import app
+
+    for full, _ in make_docs._commands(typer.main.get_command(app), "vsini"):
+        assert f"## `{full}`" in page, f"docs/commands.md lacks {full}: run python docs/make_docs.py"

@@ -115,7 +115,7 @@ def simulate(
     ),
     lsf: Optional[Path] = typer.Option(None, help="Tabulated instrument profile (velocity km/s, response); replaces R."),
     macroturbulence: float = typer.Option(0.0, help="Radial-tangential macroturbulence zeta, km/s."),
-    gaussian_macro: bool = typer.Option(False, help="Use isotropic Gaussian macroturbulence instead."),
+    gaussian_macro: bool = typer.Option(False, "--gaussian-macro", help="Use isotropic Gaussian macroturbulence instead."),
     intrinsic_width: Optional[float] = typer.Option(
         None, help="Doppler width b of the intrinsic line, km/s (profile exp(-(v/b)^2)). Default: from --teff and "
         "--microturbulence for an iron line."
@@ -185,9 +185,9 @@ def kernel(
     resolution: Optional[float] = typer.Option(None, help="Resolving power R of a Gaussian instrument profile."),
     lsf: Optional[Path] = typer.Option(None, help="Tabulated instrument profile (velocity km/s, response)."),
     macroturbulence: float = typer.Option(0.0, help="Radial-tangential macroturbulence zeta, km/s."),
-    gaussian_macro: bool = typer.Option(False, help="Use isotropic Gaussian macroturbulence instead."),
+    gaussian_macro: bool = typer.Option(False, "--gaussian-macro", help="Use isotropic Gaussian macroturbulence instead."),
     product: bool = typer.Option(
-        False, help="Multiply separate rotation and radial-tangential kernels (fast approximation) instead of "
+        False, "--product", help="Multiply separate rotation and radial-tangential kernels (fast approximation) instead of "
         "integrating them together over the disc."
     ),
     intrinsic_width: float = typer.Option(0.0, help="Doppler width b of the intrinsic Gaussian, km/s (0: none)."),

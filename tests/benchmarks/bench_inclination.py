@@ -10,7 +10,8 @@ Simulated stars only (isotropic axes, seeded); the numbers are quoted in docs/in
 import numpy as np
 from scipy import stats
 
-from vsini.inclination import VEQ_KMS_PER_RSUN_PER_DAY, deproject, infer_inclination
+from vsini.deprojection import deproject
+from vsini.inclination import VEQ_KMS_PER_RSUN_PER_DAY, infer_inclination
 
 Q = np.array([0.158655, 0.5, 0.841345])
 

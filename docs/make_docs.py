@@ -1,0 +1,57 @@
+"""Regenerate docs/commands.md and docs/flags.md from the command line's help and vsini.flags.
+
+Run: ``python docs/make_docs.py``. A test checks the committed pages are up to date.
+"""
+
+from pathlib import Path
+
+import click
+import typer
+
+HERE = Path(__file__).resolve().parent
+
+
+def _commands(group, prefix):
+    ctx = click.Context(group, info_name=prefix)
+    for name in group.list_commands(ctx):
+        cmd = group.get_command(ctx, name)
+        full = f"{prefix} {name}"
+        if isinstance(cmd, click.Group):
+            yield from _commands(cmd, full)
+        else:
+            yield full, cmd
+
+
+def commands_page():
+    """Markdown of every command's help text (as the terminal shows it, 100 columns wide)."""
+    import os
+
+    from typer.testing import CliRunner
+
+    from vsini.cli import app
+
+    os.environ["COLUMNS"] = "100"
+    root = typer.main.get_command(app)
+    runner = CliRunner()
+    out = ["# Commands", "", "Generated from the command line's `--help` by `python docs/make_docs.py`; do not edit by hand.", ""]
+    for full, _ in _commands(root, "vsini"):
+        res = runner.invoke(app, full.split()[1:] + ["--help"], env={"COLUMNS": "100", "TERM": "dumb"})
+        text = "\n".join(line.rstrip() for line in res.output.splitlines()).strip("\n")
+        out += [f"## `{full}`", "", "```text", text, "```", ""]
+    return "\n".join(out)
+
+
+def flags_page():
+    """Markdown table of every result flag."""
+    from vsini.flags import FLAGS
+
+    out = ["# Result flags", "", "Generated from `vsini.flags.FLAGS` by `python docs/make_docs.py`; do not edit by hand.", "",
+           "| flag | meaning |", "|---|---|"]
+    out += [f"| `{k}` | {v} |" for k, v in FLAGS.items()]
+    return "\n".join(out) + "\n"
+
+
+if __name__ == "__main__":
+    (HERE / "commands.md").write_text(commands_page())
+    (HERE / "flags.md").write_text(flags_page())
+    print("wrote docs/commands.md and docs/flags.md")
