@@ -1,4 +1,7 @@
-"""Tests of the Fourier first-zero estimator and the q2/q1 diagnostic (vsini.fourier; issue 4).
+"""Tests of the Fourier first-zero estimator and the q2/q1 diagnostic (issue 4).
+
+Modules: vsini.fourier (the estimator), vsini.fwindows (windows), vsini.ftransform (transform, noise,
+zero search) and vsini.zeros (zero positions q_k, macroturbulence calibration, rigid q2/q1 range).
 
 Sources of the checks:
 - zeros of the linear-law rotation transform: J1 zeros (scipy.special.jn_zeros) for eps = 0 and the roots of
@@ -18,7 +21,10 @@ import pytest
 from reference_values import Q2Q1_RIGID, Q_EPS0, Q_EPS1, Q_QUADRATIC_EXAMPLE, q1_dravins_1990
 
 from vsini import fourier as F
+from vsini import ftransform as T
+from vsini import zeros as Z
 from vsini.errors import InputError, MeasurementError
+from vsini.fwindows import FourierWindow, spectrum_windows
 from vsini.grid import C_KMS
 from vsini.kernels import gaussian_transform, instrument_width
 from vsini.limbdark import quadratic
@@ -43,16 +49,16 @@ def line_profile(vsini, *, ew=10.0, dv=1.0, extra=1.3, **broadening):
 
 def test_rotation_zeros_closed_forms():
     # eps = 0: 2 J1(u)/u -> zeros j_{1,k}/(2 pi); eps = 1: 3 j1(u)/u -> roots of tan u = u (Gray 2005, ch. 18).
-    np.testing.assert_allclose(F.rotation_zeros(0.0), Q_EPS0, rtol=1e-10)
-    np.testing.assert_allclose(F.rotation_zeros(1.0), Q_EPS1, rtol=1e-10)
+    np.testing.assert_allclose(Z.rotation_zeros(0.0), Q_EPS0, rtol=1e-10)
+    np.testing.assert_allclose(Z.rotation_zeros(1.0), Q_EPS1, rtol=1e-10)
 
 
 @pytest.mark.parametrize("eps", np.linspace(0.0, 1.0, 11))
 def test_quadratic_table_linear_limit_matches_dravins_1990(eps):
     # Dravins, Lindegren & Torkelsson 1990 polynomial (from memory), to 0.2 %: the table at b = 0.
-    q1 = F.rotation_zeros(quadratic(eps, 0.0))[0]
+    q1 = Z.rotation_zeros(quadratic(eps, 0.0))[0]
     assert q1 == pytest.approx(q1_dravins_1990(eps), rel=2e-3)
-    assert q1 == pytest.approx(F.rotation_zeros(eps)[0], rel=1e-7)
+    assert q1 == pytest.approx(Z.rotation_zeros(eps)[0], rel=1e-7)
 
 
 def test_quadratic_table_interpolation_matches_direct_roots():
@@ -60,13 +66,13 @@ def test_quadratic_table_interpolation_matches_direct_roots():
     for _ in range(20):
         a = rng.uniform(0.0, 1.0)
         b = rng.uniform(-0.4, min(0.8, 1.0 - a))
-        np.testing.assert_allclose(F.rotation_zeros(quadratic(a, b)), quadratic(a, b).transform_zeros(2), rtol=1e-6)
+        np.testing.assert_allclose(Z.rotation_zeros(quadratic(a, b)), quadratic(a, b).transform_zeros(2), rtol=1e-6)
     # Example of the reference notes, section 4 (computed from the closed form): (0.4, 0.25).
-    q = F.rotation_zeros(quadratic(*Q_QUADRATIC_EXAMPLE["ab"]))
+    q = Z.rotation_zeros(quadratic(*Q_QUADRATIC_EXAMPLE["ab"]))
     assert q[0] == pytest.approx(Q_QUADRATIC_EXAMPLE["q1"], abs=1e-4)
     assert q[1] / q[0] == pytest.approx(Q_QUADRATIC_EXAMPLE["q2_over_q1"], abs=1e-4)
     # outside the table: direct roots
-    np.testing.assert_allclose(F.rotation_zeros(quadratic(1.3, -0.4)), quadratic(1.3, -0.4).transform_zeros(2))
+    np.testing.assert_allclose(Z.rotation_zeros(quadratic(1.3, -0.4)), quadratic(1.3, -0.4).transform_zeros(2))
 
 
 def test_zero_table_regenerates_identically():
@@ -75,54 +81,54 @@ def test_zero_table_regenerates_identically():
 
     from astropy.table import Table
 
-    shipped = Table.read(str(files("vsini.data").joinpath(F.ZERO_TABLE_NAME)), format="ascii.ecsv")
-    fresh = F.build_zero_table()
+    shipped = Table.read(str(files("vsini.data").joinpath(Z.ZERO_TABLE_NAME)), format="ascii.ecsv")
+    fresh = Z.build_zero_table()
     assert len(shipped) == len(fresh)
     for col in ("a", "b", "q1", "q2"):
         np.testing.assert_allclose(shipped[col], fresh[col], rtol=1e-12, atol=1e-15)
-    assert "python -m vsini.fourier" in shipped.meta["regenerate"]
+    assert "python -m vsini.zeros" in shipped.meta["regenerate"]
 
 
 def test_write_zero_table_to_path(tmp_path):
-    path = F.write_zero_table(tmp_path / "zeros.ecsv")
+    path = Z.write_zero_table(tmp_path / "zeros.ecsv")
     assert path.endswith("zeros.ecsv")
-    assert F.rotation_zeros(quadratic(0.4, 0.25))[0] == pytest.approx(Q_QUADRATIC_EXAMPLE["q1"], abs=1e-4)
+    assert Z.rotation_zeros(quadratic(0.4, 0.25))[0] == pytest.approx(Q_QUADRATIC_EXAMPLE["q1"], abs=1e-4)
 
 
 def test_missing_zero_table_raises(monkeypatch):
-    monkeypatch.setattr(F, "ZERO_TABLE_NAME", "no_such_table.ecsv")
-    F.load_zero_table.cache_clear()
+    monkeypatch.setattr(Z, "ZERO_TABLE_NAME", "no_such_table.ecsv")
+    Z.load_zero_table.cache_clear()
     try:
-        with pytest.raises(MeasurementError, match="regenerate it with 'python -m vsini.fourier'"):
-            F.load_zero_table()
+        with pytest.raises(MeasurementError, match="regenerate it with 'python -m vsini.zeros'"):
+            Z.load_zero_table()
     finally:
         monkeypatch.undo()
-        F.load_zero_table.cache_clear()
+        Z.load_zero_table.cache_clear()
 
 
 def test_rigid_q2_q1_range_linear_law():
     # Reiners & Schmitt 2002: rigid q2/q1 ~1.76 at eps = 0.6; 1.83 (eps 0) to 1.72 (eps 1) (reference notes, section 3).
     for eps, value in Q2Q1_RIGID.items():
-        assert F.rigid_q2_q1_range(eps, tolerance=0.0)[1] == pytest.approx(value, abs=1e-3)
-    lo, mid, hi = F.rigid_q2_q1_range(0.6, tolerance=0.1)
-    q_hi, q_lo = F.rotation_zeros(0.5), F.rotation_zeros(0.7)
+        assert Z.rigid_q2_q1_range(eps, tolerance=0.0)[1] == pytest.approx(value, abs=1e-3)
+    lo, mid, hi = Z.rigid_q2_q1_range(0.6, tolerance=0.1)
+    q_hi, q_lo = Z.rotation_zeros(0.5), Z.rotation_zeros(0.7)
     assert (lo, hi) == pytest.approx((q_lo[1] / q_lo[0], q_hi[1] / q_hi[0]), rel=1e-12)
     assert lo < mid < hi
-    lo_q, mid_q, hi_q = F.rigid_q2_q1_range(quadratic(0.4, 0.25))
+    lo_q, mid_q, hi_q = Z.rigid_q2_q1_range(quadratic(0.4, 0.25))
     assert mid_q == pytest.approx(Q_QUADRATIC_EXAMPLE["q2_over_q1"], abs=1e-4) and lo_q < mid_q < hi_q
     # a corner with negative limb intensity (a + b > 1) uses the mathematical extension of the table
-    assert np.all(np.isfinite(F.rigid_q2_q1_range(quadratic(0.6, 0.35), tolerance=0.1)))
+    assert np.all(np.isfinite(Z.rigid_q2_q1_range(quadratic(0.6, 0.35), tolerance=0.1)))
 
 
 def test_macro_zero_positions_move_with_zeta():
     """Joint rotation + radial-tangential kernel (Gray 2005, ch. 17-18): zeros move up, q2/q1 drops, then vanish."""
-    np.testing.assert_allclose(F.macro_zero_positions(0.0), F.rotation_zeros(0.6))
-    q = np.array([F.macro_zero_positions(r) for r in (0.1, 0.3, 0.5)])
+    np.testing.assert_allclose(Z.macro_zero_positions(0.0), Z.rotation_zeros(0.6))
+    q = np.array([Z.macro_zero_positions(r) for r in (0.1, 0.3, 0.5)])
     assert np.all(np.diff(q[:, 0]) > 0) and np.all(np.diff(q[:, 1] / q[:, 0]) < 0)
-    assert q[0, 0] == pytest.approx(F.rotation_zeros(0.6)[0], rel=1e-4)
-    assert np.all(np.isnan(F.macro_zero_positions(1.0)))
+    assert q[0, 0] == pytest.approx(Z.rotation_zeros(0.6)[0], rel=1e-4)
+    assert np.all(np.isnan(Z.macro_zero_positions(1.0)))
     with pytest.raises(InputError, match="zeta/vsini must be >= 0"):
-        F.macro_zero_positions(-0.1)
+        Z.macro_zero_positions(-0.1)
 
 
 # --------------------------------------------------------------------------------------------- transform and noise
@@ -132,21 +138,21 @@ def test_cosine_taper_is_the_tukey_window():
     from scipy.signal.windows import tukey
 
     for n, f in ((101, 0.1), (64, 0.25), (50, 0.5)):
-        np.testing.assert_allclose(F.cosine_taper(n, f), tukey(n, 2 * f), atol=1e-12)
-    assert np.all(F.cosine_taper(20, 0.0) == 1.0)
+        np.testing.assert_allclose(T.cosine_taper(n, f), tukey(n, 2 * f), atol=1e-12)
+    assert np.all(T.cosine_taper(20, 0.0) == 1.0)
     with pytest.raises(InputError, match="taper fraction must be within 0..0.5"):
-        F.cosine_taper(10, 0.7)
+        T.cosine_taper(10, 0.7)
 
 
 def test_line_transform_of_a_gaussian_is_its_closed_form():
     # A Gaussian e^{-(v/b)^2} sampled at points has transform e^{-(pi b sigma)^2} (kernels.gaussian_transform).
     b = 6.0
     v = np.arange(-60.0, 60.0 + 1e-9, 0.5)
-    spec = F.line_transform((v, 0.4 * np.exp(-((v / b) ** 2)), 0.0, 0.0), taper=0.1)
+    spec = T.line_transform((v, 0.4 * np.exp(-((v / b) ** 2)), 0.0, 0.0), taper=0.1)
     keep = spec.sigma < 0.25
     np.testing.assert_allclose(spec.amplitude[keep], gaussian_transform(spec.sigma[keep], b), atol=1e-9)
     np.testing.assert_allclose(spec.real[keep], spec.amplitude[keep], atol=1e-9)
-    custom = F.line_transform((v, 0.4 * np.exp(-((v / b) ** 2)), 0.0, 0.0), sigma=np.array([0.0, 0.05]))
+    custom = T.line_transform((v, 0.4 * np.exp(-((v / b) ** 2)), 0.0, 0.0), sigma=np.array([0.0, 0.05]))
     assert custom.amplitude[0] == pytest.approx(1.0) and custom.amplitude[1] == pytest.approx(
         float(gaussian_transform(0.05, b)), abs=1e-9)
 
@@ -160,21 +166,21 @@ def test_white_noise_level_of_the_transform():
     sig = np.array([0.05, 0.1, 0.2])
     ft = dv * noise @ np.exp(-2j * np.pi * np.outer(v, sig))
     rms = np.sqrt(np.mean(np.abs(ft) ** 2))
-    assert rms == pytest.approx(F.transform_noise_level(s_n, dv, n), rel=0.05)
+    assert rms == pytest.approx(T.transform_noise_level(s_n, dv, n), rel=0.05)
 
 
 def test_usable_frequency_limit_gaussian_closed_form():
     eta, t = 1e-3, 3.0
-    s_max = F.usable_frequency_limit(eta, resolution=R, threshold=t)
+    s_max = T.usable_frequency_limit(eta, resolution=R, threshold=t)
     assert gaussian_transform(s_max, instrument_width(R)) == pytest.approx(t * eta, rel=1e-10)
-    assert F.usable_frequency_limit(eta, resolution=R, step_kms=5.0) == pytest.approx(0.1)  # Nyquist 1/(2 dv)
-    assert F.usable_frequency_limit(0.5, resolution=R) == 0.0  # buried even at sigma = 0
-    assert math.isinf(F.usable_frequency_limit(eta))
+    assert T.usable_frequency_limit(eta, resolution=R, step_kms=5.0) == pytest.approx(0.1)  # Nyquist 1/(2 dv)
+    assert T.usable_frequency_limit(0.5, resolution=R) == 0.0  # buried even at sigma = 0
+    assert math.isinf(T.usable_frequency_limit(eta))
     from vsini.model import TabulatedLSF
 
     vv = np.linspace(-20, 20, 401)
     lsf = TabulatedLSF(vv, np.exp(-((vv / instrument_width(R)) ** 2)))
-    assert F.usable_frequency_limit(eta, lsf=lsf, step_kms=0.5) == pytest.approx(s_max, rel=0.01)
+    assert T.usable_frequency_limit(eta, lsf=lsf, step_kms=0.5) == pytest.approx(s_max, rel=0.01)
 
 
 # --------------------------------------------------------------------------------------------- zeros of kernels
@@ -186,10 +192,10 @@ def test_measured_zeros_of_noiseless_kernels(eps, q_ref):
     # tan x = x for eps = 1, Dravins et al. 1990 polynomial for the first zero), to 0.2 %.
     vsini = 30.0
     v, d = line_profile(vsini, limb_darkening=eps, dv=0.5)
-    z = F.fourier_zeros(v, d, 0.0)
+    z = T.fourier_zeros(v, d, 0.0)
     assert z.status == "ok" and len(z.zeros) == 2
     q = np.array(z.zeros) * vsini
-    np.testing.assert_allclose(q, F.rotation_zeros(eps), rtol=1e-4)
+    np.testing.assert_allclose(q, Z.rotation_zeros(eps), rtol=1e-4)
     assert q[0] == pytest.approx(q1_dravins_1990(eps), rel=2e-3)
     if q_ref is not None:
         np.testing.assert_allclose(q, q_ref, rtol=2e-3)
@@ -202,7 +208,7 @@ def test_convolution_theorem_instrument_and_gaussian_macro_do_not_move_zeros():
     for vsini in (20.0, 60.0):
         v, d = line_profile(vsini, ew=12.0, intrinsic_width=2.0, resolution=R, macroturbulence=4.0,
                             macro_kind="gaussian")
-        win = F.FourierWindow(v, d + 1e-4 * rng.standard_normal(v.size), 1e-4)
+        win = FourierWindow(v, d + 1e-4 * rng.standard_normal(v.size), 1e-4)
         res = F.fourier_vsini([win], resolution=R, macroturbulence=4.0, macro_kind="gaussian", mc=20, rng=1)
         assert res.vsini_kms == pytest.approx(vsini, rel=5e-3)
         assert res.macro_correction == 1.0
@@ -213,7 +219,7 @@ def test_radial_tangential_macro_correction(vsini, zeta):
     # Lines built with the joint disc-integrated rotation + RT kernel (Gray 2005, ch. 17-18): after the
     # documented correction v sin i is within 1 % (zeta <= 10 km/s, v sin i >= 20 km/s).
     v, d = line_profile(vsini, intrinsic_width=1.7, resolution=R, macroturbulence=zeta, macro_kind="rt")
-    win = F.FourierWindow(v, d, 1e-5)
+    win = FourierWindow(v, d, 1e-5)
     raw = F.fourier_vsini([win], resolution=R, mc=0)
     fixed = F.fourier_vsini([win], resolution=R, mc=0, macroturbulence=zeta)
     assert fixed.vsini_kms == pytest.approx(vsini, rel=0.01)
@@ -228,7 +234,7 @@ def test_radial_tangential_macro_correction(vsini, zeta):
 def test_macro_too_strong_for_zeros_is_flagged():
     # zeta/vsini = 0.8: the joint kernel has no zeros left; a zero in the data cannot be calibrated.
     v, d = line_profile(20.0, intrinsic_width=1.7, resolution=R, macroturbulence=16.0, macro_kind="rt")
-    res = F.fourier_vsini([F.FourierWindow(v, d, 1e-5)], resolution=R, mc=0, macroturbulence=16.0)
+    res = F.fourier_vsini([FourierWindow(v, d, 1e-5)], resolution=R, mc=0, macroturbulence=16.0)
     assert "macro_shifts_zeros" in res.flags and "differential_candidate" not in res.flags
 
 
@@ -242,7 +248,7 @@ def test_differential_rotation_from_the_disk_integrator_lowers_q2_q1():
     for alpha in (0.0, 0.3):
         model = SurfaceModel(v_eq_kms=40.0 / math.sin(math.radians(60.0)), inclination_deg=60.0, alpha=alpha)
         prof = disk_line_profile(model, v, depth=0.6, intrinsic_width_kms=1.5)
-        out[alpha] = F.fourier_vsini([F.FourierWindow(v, 1.0 - prof, 1e-5, 0.0)], mc=0, macroturbulence=0.0)
+        out[alpha] = F.fourier_vsini([FourierWindow(v, 1.0 - prof, 1e-5, 0.0)], mc=0, macroturbulence=0.0)
     lo, _, hi = out[0.0].rigid_range
     assert lo <= out[0.0].q2_q1 <= hi and "differential_candidate" not in out[0.0].flags
     assert out[0.0].vsini_kms == pytest.approx(40.0, rel=1e-3)
@@ -284,7 +290,7 @@ def test_monte_carlo_errors_match_the_scatter_and_are_seeded():
     # the first-order error of one line against the scatter over seeded realisations
     v, d = line_profile(30.0, ew=12.0, intrinsic_width=1.7, resolution=R, dv=2.0)
     rng = np.random.default_rng(9)
-    found = [F.fourier_zeros(v, d + 0.005 * rng.standard_normal(v.size), 0.005, resolution=R) for _ in range(40)]
+    found = [T.fourier_zeros(v, d + 0.005 * rng.standard_normal(v.size), 0.005, resolution=R) for _ in range(40)]
     s1 = np.array([z.zeros[0] for z in found])
     predicted = np.mean([z.zeros_err[0] for z in found])
     assert 0.7 < predicted / s1.std(ddof=1) < 1.4
@@ -323,7 +329,7 @@ def test_low_snr_zero_gives_a_limit_with_the_noise_flag():
 
 def test_spectrum_windows_skip_blends_and_lines_outside():
     sp, _ = simulated(20.0, 200.0, 1, n_lines=3)
-    wins, skipped = F.spectrum_windows(sp, [5000.0, 5008.0, 5008.5, 6000.0], rv=0.0, half_width_kms=50.0)
+    wins, skipped = spectrum_windows(sp, [5000.0, 5008.0, 5008.5, 6000.0], rv=0.0, half_width_kms=50.0)
     assert [w.label for w in wins] == ["5000.00"]
     reasons = dict(skipped)
     assert "blended" in reasons["5008.00"] and "blended" in reasons["5008.50"]
@@ -334,7 +340,7 @@ def test_spectrum_windows_skip_blends_and_lines_outside():
 
 def test_spectrum_windows_automatic_width_and_rv():
     sp, lines = simulated(30.0, 300.0, 2, rv=12.0)
-    wins, skipped = F.spectrum_windows(sp, lines)
+    wins, skipped = spectrum_windows(sp, lines)
     assert len(wins) == 10 and not skipped
     half = wins[0].velocity_kms[-1]
     assert 2.0 * 30.0 < half < 4.0 * 30.0  # 1.8 FWHM + 5 px
@@ -354,9 +360,9 @@ def test_windows_from_tuples_objects_and_estimated_noise():
     res = F.fourier_vsini([(v, dn), Win()], resolution=R, mc=0)
     assert res.vsini_kms == pytest.approx(30.0, rel=0.02) and [ln.label for ln in res.lines] == ["window 0", "object"]
     # DER_SNR scatter (Stoehr et al. 2008): right on continuum, conservative (line curvature adds) on a line
-    flat = F.FourierWindow(v, 0.002 * rng.standard_normal(v.size))
+    flat = FourierWindow(v, 0.002 * rng.standard_normal(v.size))
     assert flat.noise_estimated and flat.noise[0] == pytest.approx(0.002, rel=0.2)  # ~150 px: ~9 % scatter
-    assert F.FourierWindow(v, dn).noise[0] > 0.9 * 0.002
+    assert FourierWindow(v, dn).noise[0] > 0.9 * 0.002
     json.dumps(res.as_dict())  # plain values only
 
 
@@ -366,7 +372,7 @@ def test_window_fills_masked_pixels_and_uses_velocity_quantity():
     v, d = line_profile(30.0, intrinsic_width=1.7, dv=1.0)
     d = d.copy()
     d[10:14] = np.nan
-    win = F.FourierWindow(v * u.km / u.s, d, 1e-4, 0.0 * u.km / u.s)
+    win = FourierWindow(v * u.km / u.s, d, 1e-4, 0.0 * u.km / u.s)
     assert win.n_filled == 4 and np.all(np.isfinite(win.depression))
     assert F.fourier_vsini([win], mc=0).vsini_kms == pytest.approx(30.0, rel=1e-3)
 
@@ -417,12 +423,12 @@ def test_plot_fourier_returns_axes():
 )
 def test_fourier_window_errors(args, kwargs, match):
     with pytest.raises(InputError, match=match):
-        F.FourierWindow(*args, **kwargs)
+        FourierWindow(*args, **kwargs)
 
 
 def test_fourier_vsini_argument_errors():
     v, d = line_profile(30.0, intrinsic_width=1.7, dv=1.0)
-    w = [F.FourierWindow(v, d, 1e-4)]
+    w = [FourierWindow(v, d, 1e-4)]
     with pytest.raises(InputError, match="macro_kind must be 'rt' or 'gaussian'"):
         F.fourier_vsini(w, macro_kind="iso")
     with pytest.raises(InputError, match="macroturbulence must be >= 0"):
@@ -436,6 +442,17 @@ def test_fourier_vsini_argument_errors():
     with pytest.raises(InputError, match="has no velocity and depression"):
         F.fourier_vsini([object()])
     with pytest.raises(InputError, match="count must be within 1..5"):
-        F.fourier_zeros(v, d, 1e-4, count=0)
+        T.fourier_zeros(v, d, 1e-4, count=0)
     single = F.fourier_vsini(w[0], mc=0)  # one window, not in a list
     assert single.vsini_kms == pytest.approx(30.0, rel=1e-3)
+
+
+def test_fourier_re_exports_the_public_names_of_its_parts():
+    """``from vsini.fourier import X`` works for every name of its ``__all__`` (the module was split in four)."""
+    from vsini import fwindows
+
+    for name in F.__all__:
+        homes = [m for m in (fwindows, T, Z) if name in m.__all__]
+        assert len(homes) <= 1
+        if homes:
+            assert getattr(F, name) is getattr(homes[0], name), name

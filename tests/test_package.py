@@ -53,7 +53,8 @@ def test_physics_modules_do_not_import_matplotlib():
     import ast
     from pathlib import Path
 
-    for name in ("kernels", "limbdark", "model", "grid", "spectrum", "surface", "fourier", "fit", "lines", "inclination"):
+    for name in ("kernels", "limbdark", "model", "grid", "spectrum", "surface", "fourier", "ftransform", "fwindows",
+                 "zeros", "fit", "lines", "inclination", "deprojection", "sensitivity", "simulate", "compare"):
         path = Path(vsini.__file__).parent / f"{name}.py"
         if not path.exists():
             continue

@@ -337,9 +337,8 @@ def window_half_width(vsini, gauss_b, macroturbulence=0.0, *, step_kms=0.0):
 
     ``1.8 (v sin i + 3 b + 3 zeta) + 5 pixels``, with ``b`` the 1/e half-width of all Gaussian parts
     (instrument, intrinsic) added in quadrature: beyond ``3 b`` a Gaussian is below 1e-4 of its peak,
-    and the factor 1.8 leaves continuum for the linear continuum fit on both sides. (1.8 rather than a
-    tighter 1.3 brings the variance of v sin i for shallow lines closer to the Cramer-Rao bound: 1.16
-    against 1.25 times the bound at 100 km/s, S/N 100, in ``tests/benchmarks/bench_fit.py``.)
+    and the factor 1.8 leaves continuum for the linear continuum fit on both sides (common practice; a
+    tighter 1.3 gave a visibly larger scatter of v sin i for shallow lines in ``tests/benchmarks/bench_fit.py``).
     """
     return 1.8 * (max(vsini, 0.0) + 3.0 * gauss_b + 3.0 * max(macroturbulence, 0.0)) + 5.0 * step_kms
 
