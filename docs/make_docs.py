@@ -5,21 +5,17 @@ Run: ``python docs/make_docs.py``. A test checks the committed pages are up to d
 
 from pathlib import Path
 
-import click
-import typer
 
 HERE = Path(__file__).resolve().parent
 
 
-def _commands(group, prefix):
-    ctx = click.Context(group, info_name=prefix)
-    for name in group.list_commands(ctx):
-        cmd = group.get_command(ctx, name)
-        full = f"{prefix} {name}"
-        if isinstance(cmd, click.Group):
-            yield from _commands(cmd, full)
-        else:
-            yield full, cmd
+def _commands(app, prefix):
+    """(full command name, typer command info) for every command, depth first, in registration order."""
+    for info in app.registered_commands:
+        name = info.name or info.callback.__name__.replace("_", "-")
+        yield f"{prefix} {name}", info
+    for group in app.registered_groups:
+        yield from _commands(group.typer_instance, f"{prefix} {group.name}")
 
 
 def commands_page():
@@ -31,10 +27,9 @@ def commands_page():
     from vsini.cli import app
 
     os.environ["COLUMNS"] = "100"
-    root = typer.main.get_command(app)
     runner = CliRunner()
     out = ["# Commands", "", "Generated from the command line's `--help` by `python docs/make_docs.py`; do not edit by hand.", ""]
-    for full, _ in _commands(root, "vsini"):
+    for full, _ in _commands(app, "vsini"):
         res = runner.invoke(app, full.split()[1:] + ["--help"], env={"COLUMNS": "100", "TERM": "dumb"})
         text = "\n".join(line.rstrip() for line in res.output.splitlines()).strip("\n")
         out += [f"## `{full}`", "", "```text", text, "```", ""]

@@ -81,9 +81,7 @@ def test_flag_and_command_pages_are_current():
     spec.loader.exec_module(make_docs)
     assert (docs / "flags.md").read_text() == make_docs.flags_page(), "run python docs/make_docs.py"
     page = (docs / "commands.md").read_text()
-    import typer
-
     from vsini.cli import app
 
-    for full, _ in make_docs._commands(typer.main.get_command(app), "vsini"):
+    for full, _ in make_docs._commands(app, "vsini"):
         assert f"## `{full}`" in page, f"docs/commands.md lacks {full}: run python docs/make_docs.py"

@@ -533,3 +533,139 @@ def plot_deprojection(result, *, axes=None, title=None):
             head += "  [" + " ".join(r.flags) + "]"
         a0.set_title(head, fontsize=7, loc="left")
     return axes
+
+
+# --------------------------------------------------------------------------------------------- survey
+# (functions for the results table of vsini.survey)
+
+__all__ += ["plot_survey_comparison", "plot_vsini_distribution"]
+
+
+def _column(table, name):
+    """A table column as a float array with NaN where masked or missing."""
+    if name not in getattr(table, "colnames", table.keys() if hasattr(table, "keys") else ()):
+        return np.full(len(table), np.nan)
+    col = np.ma.asarray(table[name])
+    if col.dtype.kind == "b":
+        return np.ma.filled(col.astype(float), 0.0)
+    return np.ma.filled(col.astype(float), np.nan)
+
+
+def plot_survey_comparison(table, *, axes=None, title=None):
+    """Fourier first zero against the profile fit, with the 1:1 line, and their difference in sigma.
+
+    Parameters
+    ----------
+    table : astropy Table (or mapping of columns)
+        Survey results: ``vsini_fit``, ``vsini_fit_err``, ``vsini_fit_upper_limit``, ``vsini_fourier``,
+        ``vsini_fourier_err``, ``vsini_fourier_upper_limit``, ``difference_sigma``.
+    axes : pair of Axes, optional
+        Top (values) and bottom (differences). A one-column figure is made when None.
+    title : str, optional
+
+    Returns
+    -------
+    (Axes, Axes)
+
+    Notes
+    -----
+    Top: stars with both values, with one-sigma error bars, on logarithmic axes; stars where one method
+    gives only an upper limit are drawn at the limit with an arrow pointing to lower values (open
+    symbols). Bottom: :math:`(v_\\mathrm{fit} - v_\\mathrm{F})/\\sqrt{\\sigma_\\mathrm{fit}^2 +
+    \\sigma_\\mathrm{F}^2}` against the fitted value; the shaded band is +-3 sigma, the threshold of the
+    ``methods_disagree`` flag.
+    """
+    if axes is None:
+        _, axes = new_axes(2, 1, width=COLUMN_WIDTH_IN, height=COLUMN_WIDTH_IN * 1.25, constrained_layout=True,
+                           gridspec_kw={"height_ratios": [3, 1.3]}, sharex=True)
+    fit, fit_e, fit_l = (_column(table, c) for c in ("vsini_fit", "vsini_fit_err", "vsini_fit_upper_limit"))
+    four, four_e, four_l = (_column(table, c) for c in ("vsini_fourier", "vsini_fourier_err",
+                                                         "vsini_fourier_upper_limit"))
+    diff = _column(table, "difference_sigma")
+    with _style():
+        top, bottom = axes
+        both = np.isfinite(fit) & np.isfinite(four)
+        top.errorbar(fit[both], four[both], xerr=np.nan_to_num(fit_e[both]), yerr=np.nan_to_num(four_e[both]),
+                     fmt="o", ms=3, lw=0.6, color=PALETTE[5], label=f"both methods ({both.sum()})")
+        f_lim = np.isfinite(fit) & ~np.isfinite(four) & np.isfinite(four_l)
+        if f_lim.any():
+            top.errorbar(fit[f_lim], four_l[f_lim], yerr=0.25 * four_l[f_lim], uplims=True, fmt="s", ms=3,
+                         mfc="none", lw=0.6, color=PALETTE[6], label="Fourier: upper limit")
+        l_fit = ~np.isfinite(fit) & np.isfinite(fit_l) & np.isfinite(four)
+        if l_fit.any():
+            top.errorbar(fit_l[l_fit], four[l_fit], xerr=0.25 * fit_l[l_fit], xuplims=True, fmt="D", ms=3,
+                         mfc="none", lw=0.6, color=PALETTE[1], label="fit: upper limit")
+        values = np.concatenate([fit[both], four[both], four_l[f_lim], fit[f_lim], fit_l[l_fit], four[l_fit]])
+        values = values[np.isfinite(values) & (values > 0)]
+        lo, hi = (values.min() / 1.6, values.max() * 1.6) if values.size else (1.0, 300.0)
+        top.plot([lo, hi], [lo, hi], color="0.5", lw=0.7, ls="--", label="1:1")
+        top.set_xscale("log")
+        top.set_yscale("log")
+        top.set_xlim(lo, hi)
+        top.set_ylim(lo, hi)
+        top.set_ylabel("v sin i, Fourier first zero (km s$^{-1}$)")
+        top.legend(loc="upper left", frameon=False)
+        if title:
+            top.set_title(title, fontsize=8, loc="left")
+        bottom.axhspan(-3, 3, color=PALETTE[2], alpha=0.2, lw=0)
+        bottom.axhline(0, color="0.5", lw=0.6)
+        ok = np.isfinite(diff) & np.isfinite(fit) & (fit > 0)
+        bottom.plot(fit[ok], diff[ok], "o", ms=3, color=PALETTE[5])
+        bottom.set_xscale("log")
+        bottom.set_xlim(lo, hi)
+        span = max(4.0, float(np.max(np.abs(diff[ok]))) * 1.15) if ok.any() else 4.0
+        bottom.set_ylim(-span, span)
+        bottom.set_xlabel("v sin i, profile fit (km s$^{-1}$)")
+        bottom.set_ylabel("fit $-$ Fourier ($\\sigma$)")
+    return axes
+
+
+def plot_vsini_distribution(table, *, ax=None, bins=None, title=None):
+    """Histogram of the adopted v sin i, upper limits drawn apart (hatched, at the limit value).
+
+    Parameters
+    ----------
+    table : astropy Table (or mapping of columns)
+        Survey results: ``vsini_adopted`` and ``vsini_adopted_is_limit``.
+    ax : Axes, optional
+    bins : array, optional
+        Bin edges in km/s (default: logarithmic, 8 per decade, covering the values).
+    title : str, optional
+
+    Returns
+    -------
+    Axes
+
+    Notes
+    -----
+    Measured values and upper limits are stacked: the hatched part of a bar counts stars whose adopted value
+    is only an upper limit at that velocity (their true v sin i is anywhere below it).
+    """
+    if ax is None:
+        _, ax = new_axes(width=COLUMN_WIDTH_IN, height=COLUMN_WIDTH_IN * 0.7, constrained_layout=True)
+    value = _column(table, "vsini_adopted")
+    limit = _column(table, "vsini_adopted_is_limit") > 0
+    ok = np.isfinite(value) & (value > 0)
+    with _style():
+        if bins is None:
+            if ok.any():
+                lo, hi = np.log10(value[ok].min()), np.log10(value[ok].max())
+                n = max(int(np.ceil((hi - lo) * 8)), 4)
+                bins = np.logspace(lo - 0.05, hi + 0.05, n + 1)
+            else:
+                bins = np.logspace(0, 2.5, 11)
+        measured = value[ok & ~limit]
+        limits = value[ok & limit]
+        _, _, bars = ax.hist([measured, limits], bins=bins, stacked=True, linewidth=0.8,
+                             label=[f"measured ({measured.size})", f"upper limits ({limits.size})"])
+        for patch in bars[0]:
+            patch.set(facecolor=PALETTE[5], edgecolor=PALETTE[5])
+        for patch in bars[1]:
+            patch.set(facecolor="none", edgecolor=PALETTE[6], hatch="////")
+        ax.set_xscale("log")
+        ax.set_xlabel("adopted v sin i (km s$^{-1}$)")
+        ax.set_ylabel("stars")
+        ax.legend(loc="upper right", frameon=False)
+        if title:
+            ax.set_title(title, fontsize=8, loc="left")
+    return ax

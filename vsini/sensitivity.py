@@ -123,12 +123,19 @@ def critical_velocity_kms(mass_msun, polar_radius_rsun):
     return math.sqrt(2.0 * _GM_OVER_R_SUN * m / (3.0 * r))
 
 
-def _positive(name, value):
+def _number(name, value):
     try:
         x = float(value)
     except (TypeError, ValueError):
         raise InputError(f"sensitivity_study: {name} must be a number, got {value!r}") from None
-    if not (math.isfinite(x) and x > 0):
+    if not math.isfinite(x):
+        raise InputError(f"sensitivity_study: {name} must be finite, got {value!r}")
+    return x
+
+
+def _positive(name, value):
+    x = _number(name, value)
+    if not x > 0:
         raise InputError(f"sensitivity_study: {name} must be positive and finite, got {value!r}")
     return x
 
@@ -377,7 +384,8 @@ def sensitivity_study(
 
     *Noiseless mode.* The spectra carry the nominal error :data:`NOISELESS_ERROR` (S/N 10 000) but no noise:
     the ``poor_fit`` flag then means a shape mismatch of the order of 1e-4 of the continuum, not a bad
-    measurement, and the quoted errors are those of S/N 10 000.
+    measurement, and the quoted errors are those of S/N 10 000. Far below the resolution (v sin i << c/R)
+    noiseless values are not realistic measurements; give ``snr`` for realistic limits.
 
     A failure of one estimator at one inclination (no usable line or zero) gives NaN and the flag
     ``no_lines`` (fit) or ``fourier_failed`` (Fourier) in that row; the other rows are kept.
@@ -387,10 +395,12 @@ def sensitivity_study(
     .. [1] Reiners, A. & Schmitt, J. H. M. M. 2002, A&A 384, 155.
     .. [2] Townsend, R. H. D., Owocki, S. P. & Howarth, I. D. 2004, MNRAS 350, 189 (from memory).
     """
-    omega = float(omega_crit_fraction)
-    if not (math.isfinite(omega) and 0.0 <= omega < 1.0):
+    omega = _number("omega_crit_fraction", omega_crit_fraction)
+    if not 0.0 <= omega < 1.0:
         raise InputError(f"sensitivity_study: omega_crit_fraction={omega_crit_fraction} must satisfy 0 <= omega < 1")
-    if omega > 0 and float(alpha) != 0.0:
+    alpha = _number("alpha", alpha)
+    beta = _number("beta", beta)
+    if omega > 0 and alpha != 0.0:
         raise InputError(
             f"sensitivity_study: alpha={alpha} with omega_crit_fraction={omega}: the Roche model assumes rigid "
             "rotation; set one of them to 0"
@@ -407,7 +417,7 @@ def sensitivity_study(
         snr = _positive("snr", snr)
     line_list = _check_lines(lines)
     # validate alpha, beta and the law once (SurfaceModel raises InputError naming the field)
-    _model_for(v_eq, 90.0, float(alpha), omega, float(beta), law, line_list[0][0], teff_pole_k)
+    _model_for(v_eq, 90.0, alpha, omega, beta, law, line_list[0][0], teff_pole_k)
     gen = np.random.default_rng(rng)
 
     step = C_KMS / (PIXELS_PER_RESOLUTION * res)
@@ -434,7 +444,7 @@ def sensitivity_study(
         flux = np.empty(u_all.size)
         pos = 0
         for seg, ul, (centre, depth) in zip(segments, u_lines, line_list, strict=True):
-            model = _model_for(v_eq, i_deg, float(alpha), omega, float(beta), law, centre, teff_pole_k)
+            model = _model_for(v_eq, i_deg, alpha, omega, beta, law, centre, teff_pole_k)
             flux[pos : pos + seg.size] = _pixel_mean_profile(model, seg, ul, step, depth, b, b_eff)
             pos += seg.size
         if snr is None:
@@ -444,7 +454,7 @@ def sensitivity_study(
             flux = flux + err * gen.standard_normal(flux.size)
         spec = Spectrum(wave, flux, err, name=f"sensitivity i={i_deg:g}")
 
-        model0 = _model_for(v_eq, i_deg, float(alpha), omega, float(beta), law, centres[0], teff_pole_k)
+        model0 = _model_for(v_eq, i_deg, alpha, omega, beta, law, centres[0], teff_pole_k)
         vs_true = model0.vsini_kms
         profiles.append(disk_line_profile(model0, v_prof, depth=d0 * b / b_eff, intrinsic_width_kms=b_eff))
         rigid = SurfaceModel(v_eq_kms=vs_true, inclination_deg=90.0, limb_darkening=law)
@@ -493,8 +503,8 @@ def sensitivity_study(
             "equatorial_over_polar_radius": x_eq,
             "mass_msun": None if mass_msun is None else float(mass_msun),
             "polar_radius_rsun": None if radius_rsun is None else float(radius_rsun),
-            "alpha": float(alpha),
-            "gravity_darkening_beta": float(beta),
+            "alpha": alpha,
+            "gravity_darkening_beta": beta,
             "teff_pole_k": teff_pole_k,
             "limb_darkening": ld.label,
             "resolution": res,
@@ -518,8 +528,8 @@ def sensitivity_study(
         v_eq_kms=float(v_eq),
         v_crit_kms=float(v_crit),
         omega_crit_fraction=omega,
-        alpha=float(alpha),
-        beta=float(beta),
+        alpha=alpha,
+        beta=beta,
         limb_darkening=ld.label,
         resolution=res,
         snr=snr,
