@@ -6,17 +6,17 @@ unexpected exception becomes one line too (exit 3) unless ``VSINI_DEBUG=1`` asks
 
 from __future__ import annotations
 
-import functools
-import json
 import math
-import os
 import sys
 from pathlib import Path
 from typing import Optional
 
 import typer
 
-from .errors import VsiniError
+from ._cli_common import guarded as _guarded
+from ._cli_common import print_json as _print_json
+from ._cli_common import use_agg as _use_agg
+from .cli_inclination import inclination_app
 
 __all__ = ["app", "main"]
 
@@ -27,56 +27,7 @@ app = typer.Typer(
     add_completion=False,
     pretty_exceptions_enable=False,
 )
-
-
-def _fail(message, code=2):
-    typer.echo(f"vsini: error: {message}", err=True)
-    raise typer.Exit(code)
-
-
-def _guarded(fn):
-    """Turn library errors into one line and an exit code instead of a traceback."""
-
-    @functools.wraps(fn)
-    def wrapper(*args, **kwargs):
-        try:
-            return fn(*args, **kwargs)
-        except (typer.Exit, typer.Abort, SystemExit, KeyboardInterrupt):
-            raise
-        except VsiniError as e:
-            _fail(str(e), 2)
-        except Exception as e:  # a bug: still one line for the user
-            if os.environ.get("VSINI_DEBUG"):
-                raise
-            _fail(f"unexpected {type(e).__name__}: {e} (set VSINI_DEBUG=1 for the traceback)", 3)
-
-    return wrapper
-
-
-def _use_agg():
-    import matplotlib
-
-    matplotlib.use("Agg")
-
-
-def _json_safe(obj):
-    """Replace NaN/inf with None so the output is valid JSON."""
-    if isinstance(obj, dict):
-        return {k: _json_safe(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [_json_safe(v) for v in obj]
-    if hasattr(obj, "item") and not isinstance(obj, (str, bytes)):
-        try:
-            obj = obj.item()
-        except (ValueError, AttributeError):
-            pass
-    if isinstance(obj, float) and not math.isfinite(obj):
-        return None
-    return obj
-
-
-def _print_json(obj):
-    typer.echo(json.dumps(_json_safe(obj), indent=2, allow_nan=False))
+app.add_typer(inclination_app, name="inclination")
 
 
 def _parse_range(text):

@@ -223,6 +223,11 @@ def _worker_init():
     matplotlib.use("Agg")
 
 
+def _ping():
+    """A task that does nothing: checks that the workers start."""
+    return True
+
+
 def _mp_context():
     methods = multiprocessing.get_all_start_methods()
     if "forkserver" in methods:
@@ -247,6 +252,13 @@ def _run_local(tasks, settings, jobs, limit, function):
         pending[pool.submit(function, task, settings)] = (task, alone)
 
     try:
+        try:
+            pool.submit(_ping).result()
+        except BrokenProcessPool as e:
+            raise VsiniError(
+                "local worker processes could not start; when run_survey is called from a script, put the call "
+                "under `if __name__ == '__main__':` (worker processes import the main module), or use jobs=1"
+            ) from e
         while True:
             if suspects:  # after a worker died: one star at a time, so a crash identifies its star
                 if not pending:

@@ -4,13 +4,16 @@ Every line window is modelled as a linear continuum times :math:`1 - D(u)`, wher
 :math:`D` is the sum of the window's lines, each an equivalent width times the composed kernel
 (intrinsic (x) rotation (x) macroturbulence (x) instrument, :mod:`vsini.model`) shifted by the radial
 velocity. Shared by all lines: v sin i, the radial velocity, the macroturbulence (free, fixed or off)
-and, optionally, the intrinsic width; per line: the equivalent width and the continuum. The model is
-computed on a fine grid uniform in log-velocity and integrated over the data pixels, so the data are
-never resampled and their noise stays independent. Limb darkening is fixed.
+and, optionally, the intrinsic width; per line: the equivalent width and the continuum. Lines found by
+:func:`vsini.lines.detect_lines` have measured, not laboratory, centres: each gets its own free centre
+and no radial velocity is reported. The model (:class:`vsini.linemodel.JointModel`) is computed on a
+fine grid uniform in log-velocity and integrated over the data pixels, so the data are never resampled
+and their noise stays independent. Limb darkening is fixed.
 
 Uncertainties come from the fit's covariance (scaled by the reduced chi-square when the spectrum has no
 uncertainties) or from Monte Carlo noise resampling. When rotation is not resolved the result is an
-upper limit (see :func:`detection_limit` and ``docs/fitting.md``).
+upper limit (see :func:`detection_limit` and ``docs/fitting.md``); so is a macroturbulence that
+ends at zero (see :data:`MACRO_LIMIT_DCHI2`).
 """
 
 from __future__ import annotations
@@ -25,10 +28,11 @@ from .errors import FitError, InputError
 from .flags import check_flags
 from .grid import C_KMS
 from .limbdark import LimbDarkening, as_limb_darkening
+from .linemodel import JointModel
 from .lines import (
     _FWHM_PER_B,
     DroppedLine,
-    JointModel,
+    Line,
     as_lines,
     detect_lines,
     emission_excess,
@@ -39,7 +43,7 @@ from .lines import (
 )
 
 __all__ = ["LineFit", "FitResult", "Chi2Map", "fit_vsini", "detection_limit", "chi2_map",
-           "DELTA_CHI2_2PARAM", "DETECTION_DCHI2"]
+           "DELTA_CHI2_2PARAM", "DETECTION_DCHI2", "MACRO_LIMIT_DCHI2"]
 
 #: Delta chi-square of the 68.3 %, 95.4 % and 99.73 % joint confidence regions of two parameters
 #: (Press et al. 2007, Numerical Recipes 3rd ed., section 15.6, table of Delta chi^2 for nu = 2).
@@ -47,6 +51,12 @@ DELTA_CHI2_2PARAM = {1: 2.30, 2: 6.18, 3: 11.8}
 #: Rotation counts as detected when fixing v sin i = 0 raises chi-square by at least this (3 sigma for one
 #: parameter, Press et al. 2007, Numerical Recipes 3rd ed., sec. 15.6); see :func:`detection_limit`.
 DETECTION_DCHI2 = 9.0
+#: A macroturbulence that ends at zero is reported as the upper limit where the profile chi-square (every
+#: other free parameter re-fitted) has risen by this much: 2 sigma for one parameter (Press et al. 2007,
+#: Numerical Recipes 3rd ed., sec. 15.6), about a 97.7 % one-sided limit at the bound.
+MACRO_LIMIT_DCHI2 = 4.0
+MACRO_AT_ZERO = 0.01  # km/s: a fitted macroturbulence below this sits at its lower bound
+EW_SIGNIFICANCE = 3.0  # a detected line whose fitted equivalent width is below 3 sigma is dropped
 VSINI_MAX = 1000.0  # km/s, upper bound of the fit
 MACRO_MAX = 150.0  # km/s
 
@@ -59,7 +69,9 @@ class LineFit:
     """The fit of one window: its lines, strengths, continuum and the arrays a figure needs.
 
     ``velocity_kms`` is the pixel position relative to the first line's rest wavelength with the
-    radial velocity removed; ``flux``, ``model`` and ``flux_err`` are divided by the fitted continuum.
+    radial velocity (and, for detected lines, that line's centre shift) removed; ``flux``, ``model`` and
+    ``flux_err`` are divided by the fitted continuum. For detected lines ``lines`` hold the fitted
+    centres and ``centre_shift_kms`` the shifts from the detected ones (empty for a shared radial velocity).
     """
 
     lines: tuple
@@ -72,6 +84,8 @@ class LineFit:
     flux: np.ndarray
     model: np.ndarray
     flux_err: np.ndarray
+    centre_shift_kms: tuple = ()
+    centre_shift_err_kms: tuple = ()
 
 
 @dataclass(frozen=True, eq=False)
@@ -80,6 +94,9 @@ class FitResult:
 
     ``vsini_kms``/``vsini_err_kms`` are NaN when rotation is not resolved; then ``is_upper_limit`` is
     True and ``upper_limit_kms`` holds the limit. ``vsini_best_kms`` always keeps the best-fit value.
+    When a free macroturbulence ends at zero its error is NaN and ``macroturbulence_upper_limit_kms``
+    holds an upper limit (:data:`MACRO_LIMIT_DCHI2`). With detected lines (``lines_detected``) every
+    line has its own centre and ``rv_kms`` is NaN: no radial velocity is measured.
     Errors are one sigma. ``flags`` uses the words of :data:`vsini.flags.FLAGS`.
     """
 
@@ -110,6 +127,8 @@ class FitResult:
     snr: float
     correlation_vsini_macro: float
     delta_chi2_zero: float = float("nan")
+    macroturbulence_upper_limit_kms: float = float("nan")
+    lines_detected: bool = False
     name: str = ""
     mc_samples: np.ndarray | None = None
     params: dict = field(default_factory=dict, repr=False)
@@ -125,6 +144,7 @@ class FitResult:
             "vsini_fit_upper_limit": self.upper_limit_kms, "vsini_fit_detection_limit": self.detection_limit_kms,
             "rv_fit": self.rv_kms, "rv_fit_err": self.rv_err_kms,
             "macroturbulence": self.macroturbulence_kms, "macroturbulence_err": self.macroturbulence_err_kms,
+            "macroturbulence_upper_limit": self.macroturbulence_upper_limit_kms,
             "n_lines": self.n_lines, "redchi_fit": self.redchi, "flags": list(self.flags),
         }
 
@@ -137,7 +157,11 @@ class FitResult:
             head = f"v sin i = {self.vsini_kms:.2f} +/- {self.vsini_err_kms:.2f} km/s ({self.error_method})"
         macro = {"off": "off", "fixed": f"{self.macroturbulence_kms:.2f} km/s (fixed)"}.get(
             self.macroturbulence_mode, f"{self.macroturbulence_kms:.2f} +/- {self.macroturbulence_err_kms:.2f} km/s")
-        out = [head, f"macroturbulence: {macro}", f"radial velocity: {self.rv_kms:.2f} +/- {self.rv_err_kms:.2f} km/s",
+        if math.isfinite(self.macroturbulence_upper_limit_kms):
+            macro = f"< {self.macroturbulence_upper_limit_kms:.2f} km/s (upper limit: the fit ended at zero)"
+        rv = (f"{self.rv_kms:.2f} +/- {self.rv_err_kms:.2f} km/s" if not self.lines_detected else
+              "not measured (detected line centres are observed, not laboratory, wavelengths)")
+        out = [head, f"macroturbulence: {macro}", f"radial velocity: {rv}",
                f"lines used: {self.n_lines}; dropped: {len(self.dropped)}; reduced chi-square {self.redchi:.2f}",
                f"flags: {', '.join(self.flags) if self.flags else 'none'}"]
         out += [f"  dropped {d.line.label}: {d.reason}" for d in self.dropped]
@@ -160,12 +184,16 @@ def _make_params(model, start, free):
     p.add("macro", value=start.get("macro", 0.0), min=0.0, max=MACRO_MAX, vary="macro" in free)
     if model.feature_b is None:
         p.add("bint", value=start["bint"], min=0.05, max=60.0, vary=True)
+    bound = model.shift_bound
+    for name in model.shift_names():
+        p.add(name, value=float(np.clip(start.get(name, 0.0), -bound, bound)), min=-bound, max=bound, vary=True)
     for name in model.ew_names() + model.continuum_names():
         p.add(name, value=start[name], vary=True)
     return p
 
 
 def _lmfit(model, params, y, sigma, scale_covar):
+    """Least-squares fit (Levenberg-Marquardt) of ``model`` to ``y`` with analytic-or-numerical derivatives."""
     import lmfit
 
     def resid(p, data):
@@ -202,18 +230,27 @@ def _start_values(model, base, ew_guess):
     return start
 
 
-def _screen(model, res):
-    """Lines to drop after a pass: emission, not detected, or residuals far above the other windows."""
+def _screen(model, res, detected=False):
+    """Lines to drop after a pass: emission, not detected, or residuals far above the other windows.
+
+    A detected line (``detected``) must also have an equivalent width of at least
+    :data:`EW_SIGNIFICANCE` sigma, or it is dropped as "not significant": it may be a noise dip.
+    """
     out = {}
     for f, (_, ln) in enumerate(model.features):
         par = res.params[f"ew{f}"]
         ew, err = par.value, _as_float(par.stderr)
         if np.isfinite(err) and ew < -3.0 * err:
             out[ln] = f"emission: equivalent width {ew:.3g} +/- {err:.2g} km/s is negative"
-        elif (np.isfinite(err) and ew < 2.0 * err) or ew <= 0:
+        elif (np.isfinite(err) and ew < (EW_SIGNIFICANCE if detected else 2.0) * err) or ew <= 0:
             bump = _emission_bump(res.residual[model.rows[model.features[f][0]]])
-            out[ln] = (f"emission: the flux rises {bump:.0f} sigma above the continuum" if bump > 5.0 else
-                       f"not detected: equivalent width {ew:.3g} +/- {err:.2g} km/s is below 2 sigma")
+            if bump > 5.0:
+                out[ln] = f"emission: the flux rises {bump:.0f} sigma above the continuum"
+            elif detected:
+                out[ln] = (f"not significant: equivalent width {ew:.3g} +/- {err:.2g} km/s is below "
+                           f"{EW_SIGNIFICANCE:.0f} sigma (a detected dip that may be noise)")
+            else:
+                out[ln] = f"not detected: equivalent width {ew:.3g} +/- {err:.2g} km/s is below 2 sigma"
     if model.n_windows >= 3:
         r2 = res.residual**2  # in units of the pixel sigma
         per = np.array([r2[model.rows[w]].mean() for w in range(model.n_windows)])
@@ -249,7 +286,9 @@ def fit_vsini(spectrum, *, lines=None, resolution=None, limb_darkening=0.6, macr
     teff, microturbulence : float
         K and km/s.
     rv : float, optional
-        Starting radial velocity (km/s); estimated from the line stack when None (0 for detected lines).
+        Starting radial velocity (km/s); estimated from the line stack when None. Not used with detected
+        lines: their centres are observed wavelengths, each fitted on its own, and no radial velocity is
+        reported (``rv_kms`` NaN).
     mc : int
         Number of Monte Carlo noise realisations for the uncertainty (0: covariance only).
     rng : None, int or numpy Generator
@@ -258,7 +297,10 @@ def fit_vsini(spectrum, *, lines=None, resolution=None, limb_darkening=0.6, macr
         Tabulated instrument profile used instead of ``resolution``.
     macro_kind : {'rt', 'gaussian'}
     max_passes : int
-        Fit passes: windows are re-cut around the fitted width and lines screened after each pass.
+        Fit passes that re-cut the windows around the fitted width. Lines are screened after every pass;
+        a pass that drops lines is repeated and does not count. When radial-tangential macroturbulence
+        is on, these passes use the product approximation of rotation and macroturbulence, and one last
+        fit on the final windows uses the exact joint kernel.
 
     Returns
     -------
@@ -298,7 +340,7 @@ def fit_vsini(spectrum, *, lines=None, resolution=None, limb_darkening=0.6, macr
         return K.doppler_width(5800.0 if teff is None else teff, element=ln.element, microturbulence=microturbulence)
 
     b_guess = 2.0 if free_b else max(b_of(ln) for ln in line_list)
-    rv0 = 0.0 if (detected and rv is None) else rv
+    rv0 = 0.0 if detected else rv  # detected centres are observed wavelengths: no radial velocity
     narrow = 0.5 * _FWHM_PER_B * b_ins
     rv_est, fwhm, signif = estimate_rv(spectrum, line_list, rv=rv0, min_fwhm_kms=narrow)
     if not np.isfinite(rv_est):
@@ -319,20 +361,27 @@ def fit_vsini(spectrum, *, lines=None, resolution=None, limb_darkening=0.6, macr
     state = {"vsini": float(np.clip(vsini0, 0.3, 600.0)), "rv": float(rv0), "macro": macro0, "bint": b_guess}
     if macro_mode == "free":
         state["macro"] = float(np.clip(0.3 * state["vsini"], 1.0, 20.0))
-    free = {"vsini", "rv"} | ({"macro"} if macro_mode == "free" else set())
+    free = {"vsini"} | (set() if detected else {"rv"}) | ({"macro"} if macro_mode == "free" else set())
     active, screened, ew_guess = [ln for ln in line_list if ln not in emission], dict(emission), {}
     restarts = [min(4.0 * state["vsini"] + 2.0 * b_ins, 500.0)]
     kfac = rotation_fwhm_factor(ld)
-    for n_pass in range(max_passes):
+    # the exact joint disc integral of rotation and RT macroturbulence is costly: the passes use the product
+    # of the two transforms, the final fit the joint kernel (tests/test_fit.py checks the change is << error)
+    final_mode = "joint" if macro_mode != "off" and macro_kind == "rt" else None
+    n_window_passes = 0
+    for _ in range(max_passes + len(line_list) + len(restarts)):  # a pass that drops lines does not count
         gb = math.hypot(b_ins, state["bint"] if free_b else b_guess)
         hw = window_half_width(state["vsini"], gb, state["macro"], step_kms=step)
-        merge = 0.25 * math.hypot(kfac * state["vsini"], _FWHM_PER_B * gb)
-        windows, dropped_x = extract_windows(spectrum, active, rv=state["rv"], half_width=hw, merge_kms=merge)
+        fwhm_now = math.hypot(kfac * state["vsini"], _FWHM_PER_B * gb)
+        windows, dropped_x = extract_windows(spectrum, active, rv=state["rv"], half_width=hw, merge_kms=0.25 * fwhm_now)
         if not windows:
             raise _no_lines(name, "no usable line", tuple(_dropped_items(screened)) + dropped_x)
         widths = None if free_b else [b_of(ln) for win in windows for ln in win.lines]
+        # a detected centre may move by up to half the line's FWHM (at least half a resolution element)
+        bound = 0.5 * max(fwhm_now + 2.0 * state["macro"], _FWHM_PER_B * b_ins, 3.0 * step) if detected else 0.0
         model = JointModel(windows, limb_darkening=ld, resolution=resolution, lsf=lsf, intrinsic_widths=widths,
-                           macro_kind=macro_kind)
+                           macro_kind=macro_kind, rt_mode="product" if final_mode else "joint",
+                           free_centres=detected, shift_bound_kms=bound)
         sigma, scale = _noise(model, spectrum)
         params = _make_params(model, _start_values(model, state, ew_guess), free)
         res = _lmfit(model, params, model.y, sigma, scale)
@@ -340,7 +389,7 @@ def fit_vsini(spectrum, *, lines=None, resolution=None, limb_darkening=0.6, macr
         if free_b:
             state["bint"] = res.params["bint"].value
         ew_guess = {ln: res.params[f"ew{f}"].value for f, (_, ln) in enumerate(model.features)}
-        bad = _screen(model, res) if n_pass < max_passes - 1 else {}
+        bad = _screen(model, res, detected)
         if bad:
             if all(ln in bad for _, ln in model.features):
                 if restarts:  # the first start may have led to a false narrow solution: start wider
@@ -352,12 +401,30 @@ def fit_vsini(spectrum, *, lines=None, resolution=None, limb_darkening=0.6, macr
             screened.update(bad)
             active = [ln for ln in active if not any(_covers(b, ln) for b in bad)]
             continue
+        n_window_passes += 1
         new_hw = window_half_width(state["vsini"], math.hypot(b_ins, state["bint"] if free_b else b_guess),
                                    state["macro"], step_kms=step)
-        if 0.7 * hw < new_hw < 1.2 * hw:  # the windows already fit the measured width (margins are generous)
+        if 0.7 * hw < new_hw < 1.2 * hw or n_window_passes >= max_passes:  # margins are generous
             break
+        if detected:  # start the next pass from the fitted centres
+            active, ew_guess = _recentre(model, res, active, ew_guess)
+    if final_mode:
+        model = model.with_rt_mode(final_mode)
+        res = _lmfit(model, res.params.copy(), model.y, sigma, scale)
     dropped = tuple(_dropped_items(screened)) + dropped_x
-    return _build_result(spectrum, model, res, sigma, scale, dropped, ld, resolution, macro_mode, free_b, mc, rng)
+    return _build_result(spectrum, model, res, sigma, scale, dropped, ld, resolution, macro_mode, free_b, mc, rng,
+                         detected)
+
+
+def _recentre(model, res, active, ew_guess):
+    """Detected lines moved to their fitted centres (:math:`\\lambda e^{\\Delta u/c}`), for the next pass."""
+    moved = {}
+    for f, (_, ln) in enumerate(model.features):
+        du = res.params[f"du{f}"].value
+        if du != 0.0 and not ln.components:
+            wave = ln.wavelength * math.exp(du / C_KMS)
+            moved[ln] = Line(wave, ln.species, (), f"auto {wave:.2f}")
+    return [moved.get(ln, ln) for ln in active], {moved.get(ln, ln): ew for ln, ew in ew_guess.items()}
 
 
 def _dropped_items(screened):
@@ -441,7 +508,8 @@ def detection_limit(model, values, free, sigma, *, n_sigma=3.0):
     return math.sqrt(n_sigma * sigma_s), sigma_s
 
 
-def _build_result(spectrum, model, res, sigma, scale, dropped, ld, resolution, macro_mode, free_b, mc, rng):
+def _build_result(spectrum, model, res, sigma, scale, dropped, ld, resolution, macro_mode, free_b, mc, rng,
+                  detected=False):
     values = res.params.valuesdict()
     free = tuple(n for n, p in res.params.items() if p.vary)
     redchi = float(res.redchi)
@@ -461,6 +529,10 @@ def _build_result(spectrum, model, res, sigma, scale, dropped, ld, resolution, m
         if macro_mode == "free":
             m_err = float(np.std(samples[:, 1], ddof=1))
         method = f"Monte Carlo ({mc} realisations)"
+    m_limit = float("nan")
+    if macro_mode == "free" and p["macro"].value < MACRO_AT_ZERO:  # at its bound the covariance error is meaningless
+        m_err = float("nan")
+        m_limit = _macro_upper_limit(model, res, sigma, redchi if scale else 1.0)
     v_det, sigma_s = detection_limit(model, values, free, sig_eff)
     dchi2 = float("nan")
     if v_best < 1e-3:
@@ -475,13 +547,13 @@ def _build_result(spectrum, model, res, sigma, scale, dropped, ld, resolution, m
         flags.append("unresolved")
     if not res.success or not res.errorbars:
         flags.append("fit_failed")
-    for pname in ("vsini", "macro", "bint", "rv"):
+    for pname in ("vsini", "macro", "bint", "rv", *model.shift_names()):
         par = p.get(pname)
         if par is None or not par.vary:
             continue
         high = par.value >= par.max - 1e-6 * max(1.0, abs(par.max))
-        low = pname in ("rv", "bint") and par.value <= par.min + 1e-6 * max(1.0, abs(par.min))
-        if high or low:  # zero v sin i or zeta are legitimate values, not bounds hit by accident
+        low = pname not in ("vsini", "macro") and par.value <= par.min + 1e-6 * max(1.0, abs(par.min))
+        if high or low:  # zero v sin i or zeta are values (reported as upper limits), not bounds hit by accident
             flags.append("at_bound")
     if np.isfinite(corr) and abs(corr) > 0.9:
         flags.append("macro_degenerate")
@@ -501,7 +573,8 @@ def _build_result(spectrum, model, res, sigma, scale, dropped, ld, resolution, m
         vsini_kms=float("nan") if unresolved else v_best,
         vsini_err_kms=float("nan") if unresolved else v_err,
         is_upper_limit=bool(unresolved), upper_limit_kms=upper, detection_limit_kms=v_det, vsini_best_kms=v_best,
-        rv_kms=p["rv"].value, rv_err_kms=_as_float(p["rv"].stderr),
+        rv_kms=float("nan") if detected else p["rv"].value,
+        rv_err_kms=float("nan") if detected else _as_float(p["rv"].stderr),
         macroturbulence_kms=p["macro"].value if macro_mode != "off" else float("nan"),
         macroturbulence_err_kms=m_err, macroturbulence_mode=macro_mode,
         intrinsic_width_kms=p["bint"].value if free_b else float(np.max(model.feature_b)),
@@ -509,6 +582,7 @@ def _build_result(spectrum, model, res, sigma, scale, dropped, ld, resolution, m
         limb_darkening=ld, resolution=resolution, chi2=float(res.chisqr), redchi=redchi, n_data=model.n_data,
         n_free=len(free), n_lines=n_lines, lines=_line_fits(model, res, sig_eff), dropped=tuple(dropped),
         flags=check_flags(flags), error_method=method, snr=float(snr), correlation_vsini_macro=corr, delta_chi2_zero=dchi2,
+        macroturbulence_upper_limit_kms=m_limit, lines_detected=bool(detected),
         name=spectrum.name, mc_samples=samples, params=dict(values), free=free, model=model,
         sigma=sigma, scaled_errors=scale,
     )
@@ -520,6 +594,55 @@ def _delta_chi2_zero(model, res, sigma):
     p["vsini"].set(value=0.0, vary=False)
     zero = _lmfit(model, p, model.y, sigma, False)
     return float(zero.chisqr - res.chisqr)
+
+
+def _macro_upper_limit(model, res, sigma, factor):
+    """Macroturbulence (km/s) where the profile chi-square rises by :data:`MACRO_LIMIT_DCHI2` above the best fit.
+
+    At each trial :math:`\\zeta` every other free parameter is fitted again (profile likelihood). Near
+    the bound the profile depends on :math:`s = \\zeta^2`, so the rise is modelled as
+    :math:`\\Delta\\chi^2 = a s + b s^2` through the trials made so far and solved for the level; a few
+    trials (typically 3-4) reach it to 0.1 in chi-square. ``factor`` divides chi-square (the reduced
+    chi-square when the spectrum had no uncertainties). Returns :data:`MACRO_MAX` if even that is allowed.
+    """
+    warm = res.params.copy()
+    warm["macro"].set(vary=False)
+
+    def rise(zeta):
+        warm["macro"].set(value=zeta)
+        fit = _lmfit(model, warm, model.y, sigma, False)
+        for name, par in fit.params.items():  # start the next trial from this one
+            warm[name].set(value=par.value)
+        return (fit.chisqr - res.chisqr) / factor
+
+    level, s_max = MACRO_LIMIT_DCHI2, MACRO_MAX**2
+    s_try = max(model.gauss_b, 1.0) ** 2
+    points = []  # (s, rise)
+    lo, hi = 0.0, np.inf  # bracket in s
+    for _ in range(12):
+        d = rise(math.sqrt(s_try))
+        points.append((s_try, d))
+        if abs(d - level) < 0.1:
+            return math.sqrt(s_try)
+        lo, hi = (max(lo, s_try), hi) if d < level else (lo, min(hi, s_try))
+        if lo >= s_max:
+            return MACRO_MAX
+        pts = sorted(points, key=lambda q: abs(q[1] - level))[:2]
+        if len(pts) == 1 or abs(pts[0][0] - pts[1][0]) < 1e-12:
+            a, b = 0.0, max(pts[0][1], 1e-3) / pts[0][0] ** 2
+        else:
+            (s1, d1), (s2, d2) = pts
+            b = (d1 / s1 - d2 / s2) / (s1 - s2)
+            a = d1 / s1 - b * s1
+        if b > 0:
+            s_new = (-a + math.sqrt(max(a * a + 4.0 * b * level, 0.0))) / (2.0 * b)
+        else:
+            s_new = level / a if a > 0 else np.inf
+        s_new = min(s_new, 16.0 * s_try, s_max)
+        if not lo < s_new < hi:  # outside the bracket: bisect it (or grow it)
+            s_new = 0.5 * (lo + hi) if np.isfinite(hi) else min(4.0 * max(lo, s_try), s_max)
+        s_try = s_new
+    return math.sqrt(0.5 * (lo + hi)) if np.isfinite(hi) else MACRO_MAX
 
 
 def _monte_carlo(model, params, sig_eff, n, rng):
@@ -541,12 +664,19 @@ def _line_fits(model, res, sig_eff):
         r = model.rows[w]
         feats = [f for f, (fw, _) in enumerate(model.features) if fw == w]
         u = win.u[win.good] - C_KMS * math.log1p(values["rv"] / C_KMS)
+        lines, shifts, shift_errs = win.lines, (), ()
+        if model.free_centres:  # detected lines: report the fitted centres, centre the plot on the first one
+            shifts = tuple(values[f"du{f}"] for f in feats)
+            shift_errs = tuple(_as_float(res.params[f"du{f}"].stderr) for f in feats)
+            lines = tuple(ln if ln.components else Line(w0 := ln.wavelength * math.exp(d / C_KMS), ln.species, (),
+                                                        f"auto {w0:.2f}") for ln, d in zip(win.lines, shifts, strict=True))
+            u = u - shifts[0]
         out.append(LineFit(
-            lines=win.lines, ew_kms=tuple(values[f"ew{f}"] for f in feats),
+            lines=lines, ew_kms=tuple(values[f"ew{f}"] for f in feats),
             ew_err_kms=tuple(_as_float(res.params[f"ew{f}"].stderr) for f in feats),
             continuum=(values[f"c0_{w}"], values[f"c1_{w}"]), chi2=float(np.sum(res.residual[r] ** 2)),
             n_pixels=int(r.stop - r.start), velocity_kms=u, flux=model.y[r] / cont[r], model=m[r] / cont[r],
-            flux_err=sig_eff[r] / cont[r]))
+            flux_err=sig_eff[r] / cont[r], centre_shift_kms=shifts, centre_shift_err_kms=shift_errs))
     return tuple(out)
 
 
@@ -597,7 +727,9 @@ def chi2_map(result, vsini_grid=None, macro_grid=None, *, n=15):
     m_err = result.macroturbulence_err_kms if np.isfinite(result.macroturbulence_err_kms) else 0.5 * max(m0, 2.0)
     if vsini_grid is None:
         vsini_grid = np.linspace(max(v0 - 5.0 * v_err, 0.0), v0 + 5.0 * v_err, n)
-    if macro_grid is None:
+    if macro_grid is None and np.isfinite(result.macroturbulence_upper_limit_kms):  # zeta at 0: up to the limit
+        macro_grid = np.linspace(0.0, 1.5 * result.macroturbulence_upper_limit_kms, n)
+    elif macro_grid is None:
         macro_grid = np.linspace(max(m0 - 5.0 * m_err, 0.0), m0 + 5.0 * m_err, n)
     vs, ms = np.asarray(vsini_grid, dtype=float), np.asarray(macro_grid, dtype=float)
     if np.any(vs < 0) or np.any(ms < 0) or vs.ndim != 1 or ms.ndim != 1:

@@ -1,15 +1,14 @@
-"""Lines for the profile fit: shipped line sets, automatic detection, and window extraction.
+"""Lines for the profile fit: automatic detection, window extraction and starting values.
 
-A :class:`Line` is one absorption feature: a rest wavelength (air, Angstrom) and, for a blend of
-known components (e.g. Mg II 4481), the components with their relative strengths. The fit gives each
-feature one strength (equivalent width). Line sets ship as ECSV tables in the package data
-(``vsini.data``, the top-level ``kernels/`` folder) and are read with :func:`load_line_set`.
+A :class:`Line` is one absorption feature; it and the shipped line sets live in :mod:`vsini.linesets`
+and are re-exported here. :func:`detect_lines` finds isolated lines when no list is given; their
+centres are measured in the observed frame, not laboratory wavelengths.
 
 :func:`extract_windows` cuts a window around each line in log-velocity :math:`u = c\\ln(\\lambda/\\lambda_0)`,
 merges lines whose windows overlap into one window, and drops lines it cannot use, each with a reason
 (:class:`DroppedLine`). :func:`stack_profile`, :func:`estimate_rv` and :func:`estimate_fwhm` give the
-starting values of the fit (radial velocity and a first width) without a user guess. :class:`JointModel`
-is the forward model of a set of windows, evaluated on their pixels, used by :mod:`vsini.fit`.
+starting values of the fit (radial velocity and a first width) without a user guess. The forward model of
+a set of windows is :class:`vsini.linemodel.JointModel`.
 """
 
 from __future__ import annotations
@@ -18,14 +17,9 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import fft as _fft
-from scipy import sparse
 
-from . import kernels as K
-from .errors import InputError
 from .grid import C_KMS, pixel_edges
-from .limbdark import as_limb_darkening
-from .model import Broadening, _padded_length, synthesize
+from .linesets import DroppedLine, Line, as_lines, available_line_sets, line_set_table, load_line_set
 
 __all__ = [
     "Line",
@@ -43,134 +37,9 @@ __all__ = [
     "estimate_fwhm",
     "emission_excess",
     "rotation_fwhm_factor",
-    "JointModel",
 ]
 
 _FWHM_PER_B = 2.0 * math.sqrt(math.log(2.0))  # FWHM of exp(-(v/b)^2) is 2 sqrt(ln 2) b
-
-
-# --------------------------------------------------------------------------------------------- lines
-
-
-@dataclass(frozen=True)
-class Line:
-    """One absorption feature to fit.
-
-    Parameters
-    ----------
-    wavelength : float
-        Rest wavelength in air, Angstrom: the strength-weighted mean of the components.
-    species : str
-        Element and ionisation stage, e.g. ``'Fe I'`` ('' if unknown).
-    components : tuple of (float, float)
-        ``(wavelength, weight)`` of each component of a blend, weights summing to 1; empty for a single line.
-    label : str
-        Text for tables and figures.
-    """
-
-    wavelength: float
-    species: str = ""
-    components: tuple = ()
-    label: str = ""
-
-    def __post_init__(self):
-        w = float(self.wavelength)
-        if not (np.isfinite(w) and w > 0):
-            raise InputError(f"line: the wavelength must be a positive number of Angstrom, got {self.wavelength!r}")
-        object.__setattr__(self, "wavelength", w)
-        if not self.label:
-            object.__setattr__(self, "label", f"{self.species} {w:.2f}".strip())
-
-    @property
-    def element(self):
-        """Element symbol (``'Fe'`` for ``'Fe I'``), ``'Fe'`` when unknown: it sets the thermal width."""
-        sym = self.species.split()[0] if self.species else ""
-        return sym if sym in K.ATOMIC_MASS else "Fe"
-
-    def offsets_kms(self, reference):
-        """Component positions (km/s of :math:`c\\ln(\\lambda/\\lambda_\\mathrm{ref})`) and weights."""
-        comps = self.components or ((self.wavelength, 1.0),)
-        w = np.array([c[0] for c in comps], dtype=float)
-        return C_KMS * np.log(w / reference), np.array([c[1] for c in comps], dtype=float)
-
-
-@dataclass(frozen=True)
-class DroppedLine:
-    """A line left out of the fit, and why (one line of text)."""
-
-    line: Line
-    reason: str
-
-
-def _data_files():
-    from importlib.resources import files
-
-    return files("vsini.data")
-
-
-def available_line_sets():
-    """Names of the shipped line sets (files ``linesets_NAME.ecsv`` of the package data)."""
-    names = [p.name for p in _data_files().iterdir()]
-    return sorted(n[len("linesets_") : -len(".ecsv")] for n in names if n.startswith("linesets_") and n.endswith(".ecsv"))
-
-
-def line_set_table(name):
-    """The shipped line set ``name`` as an astropy Table, with its provenance in ``.meta``.
-
-    Raises
-    ------
-    InputError
-        If no line set of that name ships with the package.
-    """
-    from astropy.table import Table
-
-    known = available_line_sets()
-    if name not in known:
-        raise InputError(f"line set {name!r} is not shipped; choose one of {', '.join(known)} or give centres in Angstrom")
-    with _data_files().joinpath(f"linesets_{name}.ecsv").open("r") as fh:
-        return Table.read(fh.read(), format="ascii.ecsv")
-
-
-def load_line_set(name):
-    """The lines of a shipped line set (air wavelengths), components of a blend grouped into one :class:`Line`."""
-    table = line_set_table(name)
-    groups = {}
-    for row in table:
-        groups.setdefault(str(row["feature"]), []).append((float(row["wavelength"]), str(row["species"]), float(row["weight"])))
-    lines = []
-    for label, rows in groups.items():
-        w = np.array([r[0] for r in rows])
-        wt = np.array([r[2] for r in rows])
-        wt = wt / wt.sum()
-        comps = tuple(zip(w.tolist(), wt.tolist(), strict=True)) if len(rows) > 1 else ()
-        lines.append(Line(float(np.sum(w * wt)), rows[0][1], comps, label))
-    return tuple(sorted(lines, key=lambda ln: ln.wavelength))
-
-
-def as_lines(value):
-    """Turn a user's line choice into a tuple of :class:`Line`, or None (detect lines automatically).
-
-    Accepts None, a shipped line-set name, a string of centres in Angstrom separated by ``;`` or ``,``
-    (``'6151.62;6173.34'``), a sequence of numbers, or a sequence of :class:`Line`.
-    """
-    if value is None:
-        return None
-    if isinstance(value, str):
-        text = value.strip()
-        if text in available_line_sets():
-            return load_line_set(text)
-        parts = [p for p in text.replace(",", ";").split(";") if p.strip()]
-        try:
-            value = [float(p) for p in parts]
-        except ValueError:
-            raise InputError(
-                f"lines: cannot read {value!r}; give centres in Angstrom separated by ';' "
-                f"or a line-set name ({', '.join(available_line_sets())})"
-            ) from None
-    out = tuple(v if isinstance(v, Line) else Line(float(v)) for v in value)
-    if not out:
-        raise InputError("lines: the list is empty; give at least one centre in Angstrom or a line-set name")
-    return tuple(sorted(out, key=lambda ln: ln.wavelength))
 
 
 # --------------------------------------------------------------------------------------------- detection
@@ -198,16 +67,108 @@ def _running_continuum(flux, block):
     return np.interp(np.arange(n), centres, levels)
 
 
-def detect_lines(spectrum, *, resolution=None, min_snr=6.0, isolation=2.5, max_lines=40, edge_kms=None,
-                 continuum_kms=1000.0):
+def _nearest_above(y, p, level, direction):
+    """Index of the nearest pixel beyond ``p`` (``direction`` -1 or +1) with ``y > level``; -1 or len(y) if none."""
+    n, span = y.size, 64
+    while True:
+        if direction < 0:
+            lo = max(p - span, 0)
+            hit = np.flatnonzero(y[lo:p] > level)
+            if hit.size:
+                return lo + int(hit[-1])
+            if lo == 0:
+                return -1
+        else:
+            hi = min(p + 1 + span, n)
+            hit = np.flatnonzero(y[p + 1 : hi] > level)
+            if hit.size:
+                return p + 1 + int(hit[0])
+            if hi == n:
+                return n
+        span *= 4
+
+
+def _maxima(y, min_height, min_prominence):
+    """Local maxima of ``y`` with their height, prominence and full width at half prominence (pixels).
+
+    The prominence is the height above the higher of the two lowest points between the peak and the
+    nearest higher sample on each side (the spectrum ends count as higher samples); the width is measured
+    at half the prominence below the peak, with linear interpolation between samples.
+    """
+    inner = (y[1:-1] > y[:-2]) & (y[1:-1] >= y[2:]) & (y[1:-1] >= min_height)
+    peaks, prom, width = [], [], []
+    for p in np.flatnonzero(inner) + 1:
+        h = y[p]
+        left, right = _nearest_above(y, p, h, -1) + 1, _nearest_above(y, p, h, +1)
+        prominence = h - max(float(y[left:p].min()), float(y[p + 1 : right].min()))
+        if prominence < min_prominence:
+            continue
+        ref = h - 0.5 * prominence
+        j = left + int(np.flatnonzero(y[left : p + 1] <= ref)[-1])
+        k = p + int(np.flatnonzero(y[p:right] <= ref)[0])
+        xl = j + (ref - y[j]) / (y[j + 1] - y[j])
+        xr = k - (ref - y[k]) / (y[k - 1] - y[k])
+        peaks.append(p)
+        prom.append(prominence)
+        width.append(xr - xl)
+    return np.array(peaks, dtype=int), np.array(prom), np.array(width)
+
+
+def _der_snr_noise(x):
+    """Per-pixel noise of ``x`` from second differences of pixels two apart (DER_SNR; Stoehr et al. 2008,
+    ASP Conf. Ser. 394, 505, from memory): 1.482602/sqrt(6) median|2x_i - x_(i-2) - x_(i+2)|; smooth lines cancel."""
+    d = np.abs(2.0 * x[2:-2] - x[:-4] - x[4:])
+    d = d[np.isfinite(d)]
+    return float(1.482602 / math.sqrt(6.0) * np.median(d)) if d.size >= 5 else float("nan")
+
+
+def _confirm(depression, p, width_pix, smoothed, kernel_norm):
+    """Significance, equivalent-width S/N and refined position (pixels) of a candidate at pixel ``p``.
+
+    ``smoothed`` is the depression smoothed at the expected line width; the baseline is the median of the
+    depression 1.5-4 widths away; the noise is the local DER_SNR noise within 15 widths.
+    """
+    n = depression.size
+    reach = int(math.ceil(15.0 * width_pix))
+    lo, hi = max(p - reach, 0), min(p + reach + 1, n)
+    sigma = _der_snr_noise(depression[lo:hi])
+    idx = np.arange(lo, hi)
+    ring = (np.abs(idx - p) > 1.5 * width_pix) & (np.abs(idx - p) < 4.0 * width_pix)
+    ring_vals = depression[lo:hi][ring]
+    ring_vals = ring_vals[np.isfinite(ring_vals)]
+    if not (np.isfinite(sigma) and sigma > 0) or ring_vals.size < 5:
+        return 0.0, 0.0, float(p)
+    base = float(np.median(ring_vals))
+    sig_base = 1.2533 * sigma / math.sqrt(ring_vals.size)  # sd of a median: sqrt(pi/2) sigma/sqrt(n)
+    h = max(int(round(0.5 * width_pix)), 1)
+    a, b = max(p - h, 1), min(p + h + 1, n - 1)
+    q = a + int(np.nanargmax(smoothed[a:b]))
+    signif = (smoothed[q] - base) / math.hypot(sigma * kernel_norm, sig_base)
+    y0, y1, y2 = smoothed[q - 1 : q + 2]
+    denom = y0 - 2.0 * y1 + y2
+    pos = q + (float(np.clip(0.5 * (y0 - y2) / denom, -0.5, 0.5)) if denom < 0 else 0.0)
+    box = depression[max(q - int(width_pix), 0) : q + int(width_pix) + 1]
+    box = box[np.isfinite(box)]
+    ew_snr = float(np.sum(box - base)) / math.sqrt(box.size * sigma**2 + (box.size * sig_base) ** 2)
+    return float(signif), ew_snr, pos
+
+
+def detect_lines(spectrum, *, resolution=None, min_snr=6.0, min_significance=5.0, min_ew_snr=5.0, isolation=2.5,
+                 max_lines=40, edge_kms=None, continuum_kms=1000.0):
     """Find isolated absorption lines in a spectrum.
 
-    The flux is smoothed with a Gaussian and divided by its 90th percentile in blocks of ``continuum_kms``
-    (the continuum);
-    minima of the resulting depression :math:`1 - F/F_c` are found with
-    :func:`scipy.signal.find_peaks`, and a minimum is kept if it is deeper than ``min_snr`` times the
-    noise of the smoothed depression and no other minimum deeper than 10 % of it lies within
-    ``isolation`` times the mean of their two full widths at half maximum.
+    Candidates: the flux is smoothed with a Gaussian of FWHM half a resolution element and divided by
+    its 90th percentile in blocks of ``continuum_kms`` (the continuum); local maxima of the depression
+    :math:`1 - F/F_c` deeper and more prominent than ``min_snr`` times the noise of the smoothed
+    depression are kept if no other candidate deeper than 10 % of it lies within ``isolation`` times the
+    mean of their two full widths at half maximum.
+
+    Confirmation: every candidate is then measured at the expected line width (the median FWHM of the
+    candidates at least 30 % as deep as the deepest one, at least one resolution element c/R) against
+    the local noise (DER_SNR within 15 widths) and a local baseline (median 1.5-4 widths away). It is
+    kept if the depression smoothed with a Gaussian of that FWHM stands ``min_significance`` times its
+    noise above the baseline, and if its equivalent width within one width of the centre has a
+    signal-to-noise ratio of at least ``min_ew_snr``. A noise dip narrower than the lines fails both.
 
     Parameters
     ----------
@@ -215,7 +176,11 @@ def detect_lines(spectrum, *, resolution=None, min_snr=6.0, isolation=2.5, max_l
     resolution : float, optional
         Resolving power; the smoothing kernel has a FWHM of half a resolution element (default: 2 pixels).
     min_snr : float
-        Detection threshold in units of the noise of the smoothed depression.
+        Candidate threshold in units of the noise of the smoothed depression.
+    min_significance : float
+        Confirmation threshold at the expected line width, in units of the local noise of the smoothed depression.
+    min_ew_snr : float
+        Smallest signal-to-noise ratio of the equivalent width.
     isolation : float
         Isolation criterion in units of the line FWHM.
     max_lines : int
@@ -228,10 +193,10 @@ def detect_lines(spectrum, *, resolution=None, min_snr=6.0, isolation=2.5, max_l
     Returns
     -------
     tuple of Line
-        Centres in the observed frame (species ``''``, label ``'auto NNNN.NN'``), sorted by wavelength.
+        Centres in the observed frame, measured, not laboratory wavelengths (species ``''``, label
+        ``'auto NNNN.NN'``), sorted by wavelength.
     """
     from scipy.ndimage import gaussian_filter1d
-    from scipy.signal import find_peaks
 
     good = spectrum.good
     step = spectrum.velocity_step_kms()
@@ -246,11 +211,10 @@ def detect_lines(spectrum, *, resolution=None, min_snr=6.0, isolation=2.5, max_l
     smooth = np.where(np.isfinite(flux_s), 1.0 - flux_s / cont, 0.0)
     snr = spectrum.snr_estimate()
     noise = (1.0 / snr if np.isfinite(snr) and snr > 0 else 0.01) / math.sqrt(2.0 * math.sqrt(math.pi) * s_pix)
-    peaks, props = find_peaks(smooth, height=min_snr * noise, prominence=min_snr * noise, width=1.0)
+    peaks, depth, fwhm = _maxima(smooth, min_snr * noise, min_snr * noise)  # fwhm in pixels
     if peaks.size == 0:
         return ()
-    fwhm = props["widths"]  # pixels
-    depth = props["peak_heights"]
+    depth = smooth[peaks]
     bad_idx = np.flatnonzero(~good)
     keep = []
     for i, p in enumerate(peaks):
@@ -264,15 +228,28 @@ def detect_lines(spectrum, *, resolution=None, min_snr=6.0, isolation=2.5, max_l
         if np.any(near & (depth > 0.1 * depth[i])):
             continue
         keep.append(i)
-    keep = sorted(keep, key=lambda i: -depth[i])[:max_lines]
+    if not keep:
+        return ()
+    strong = depth >= 0.3 * depth.max()
+    width = max(float(np.median(fwhm[strong])), (C_KMS / resolution if resolution else 2.0 * step) / step)  # pixels
+    raw = np.where(good, 1.0 - spectrum.flux / np.where(np.isfinite(cont) & (cont > 0), cont, np.nan), np.nan)
+    s_w = width / (2.0 * math.sqrt(2.0 * math.log(2.0)))
+    ok = np.isfinite(raw)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        smoothed = gaussian_filter1d(np.where(ok, raw, 0.0), s_w, mode="nearest") / gaussian_filter1d(
+            ok * 1.0, s_w, mode="nearest")
+    impulse = np.zeros(2 * int(4 * s_w + 2) + 1)
+    impulse[impulse.size // 2] = 1.0
+    kernel_norm = float(np.sqrt(np.sum(gaussian_filter1d(impulse, s_w, mode="constant") ** 2)))
     out = []
-    for i in keep:
-        p = peaks[i]
-        y0, y1, y2 = smooth[p - 1], smooth[p], smooth[p + 1]
-        denom = y0 - 2.0 * y1 + y2
-        frac = 0.5 * (y0 - y2) / denom if denom != 0 else 0.0
-        wave = float(np.interp(p + np.clip(frac, -0.5, 0.5), np.arange(spectrum.n_pixels), spectrum.wavelength))
+    for i in sorted(keep, key=lambda i: -depth[i]):
+        signif, ew_snr, pos = _confirm(raw, int(peaks[i]), width, smoothed, kernel_norm)
+        if signif < min_significance or ew_snr < min_ew_snr:
+            continue
+        wave = float(np.interp(pos, np.arange(spectrum.n_pixels), spectrum.wavelength))
         out.append(Line(wave, "", (), f"auto {wave:.2f}"))
+        if len(out) == max_lines:
+            break
     return tuple(sorted(out, key=lambda ln: ln.wavelength))
 
 
@@ -645,182 +622,3 @@ def estimate_fwhm(velocity, depression):
     vl = np.interp(half, [d[left], d[left + 1]], [v[left], v[left + 1]])
     vr = np.interp(half, [d[right], d[right - 1]], [v[right], v[right - 1]])
     return float(vr - vl)
-
-
-# --------------------------------------------------------------------------------------------- window model
-
-_NONLINEAR = ("vsini", "rv", "macro", "bint")
-
-
-class JointModel:
-    """The forward model of a set of line windows, evaluated on the windows' good pixels.
-
-    Parameters
-    ----------
-    windows : sequence of LineWindow
-    limb_darkening : LimbDarkening
-    resolution : float or None
-    lsf : TabulatedLSF or None
-    intrinsic_widths : (F,) ndarray or None
-        Doppler width of every feature (km/s), or None when the intrinsic width is a free parameter ``bint``.
-    macro_kind : {'rt', 'gaussian'}
-    oversample : int
-        Fine cells per pixel when the pixels are not uniform in log-wavelength.
-
-    Notes
-    -----
-    The fine grid (step ``dv``) is uniform in :math:`u = c\\ln\\lambda`; each fine cell holds the exact
-    cell mean from :func:`vsini.model.synthesize`. Their running sum is the exact integral at the cell
-    edges; a 4-point Lagrange interpolation of that integral at the data-pixel edges gives pixel means
-    (exact when the pixels are the cells, i.e. for a log-uniform spectrum).
-    """
-
-    def __init__(self, windows, *, limb_darkening, resolution, lsf, intrinsic_widths, macro_kind="rt", oversample=4):
-        self.windows = tuple(windows)
-        self.limb_darkening = as_limb_darkening(limb_darkening)
-        self.resolution, self.lsf, self.macro_kind = resolution, lsf, macro_kind
-        self.features = [(w, ln) for w, win in enumerate(self.windows) for ln in win.lines]
-        self.n_windows, self.n_features = len(self.windows), len(self.features)
-        self.feature_b = None if intrinsic_widths is None else np.asarray(intrinsic_widths, dtype=float)
-        steps = np.concatenate([np.diff(win.u_edges) for win in self.windows])
-        uniform = np.all(np.abs(steps / steps[0] - 1.0) < 1e-6)
-        self.dv = float(steps[0]) if uniform else float(steps.min()) / oversample
-        self.n_fine = max(int(math.ceil((win.u_edges[-1] - win.u_edges[0]) / self.dv)) for win in self.windows) + 4
-        rows, y, err, x, win_idx, mats = [], [], [], [], [], []
-        start = 0
-        for w, win in enumerate(self.windows):
-            good = np.flatnonzero(win.good)
-            e0 = win.u_edges[0] - 2.0 * self.dv
-            mats.append(_pixel_mean_matrix(win.u_edges, good, e0, self.dv, self.n_fine + 1))
-            rows.append(slice(start, start + good.size))
-            start += good.size
-            y.append(win.flux[good])
-            err.append(None if win.flux_err is None else win.flux_err[good])
-            u = win.u[good]
-            half = 0.5 * (win.u[-1] - win.u[0])
-            x.append((u - 0.5 * (win.u[-1] + win.u[0])) / half)
-            win_idx.append(np.full(good.size, w))
-        self.rows, self.mats = rows, mats
-        self.y = np.concatenate(y)
-        self.err = None if any(e is None for e in err) else np.concatenate(err)
-        self.x, self.win = np.concatenate(x), np.concatenate(win_idx)
-        self.n_data = self.y.size
-        offs, wts, feat = [], [], []
-        for f, (w, ln) in enumerate(self.features):
-            o, wt = ln.offsets_kms(self.windows[w].reference)
-            cell0 = self.windows[w].u_edges[0] - 1.5 * self.dv  # centre of fine cell 0
-            offs.append(o - cell0)
-            wts.append(wt)
-            feat.append(np.full(o.size, f))
-        self.comp_offset, self.comp_weight, self.comp_feature = map(np.concatenate, (offs, wts, feat))
-        self._cache, self._transforms = {}, {}
-
-    # -- parameters -----------------------------------------------------------------------------
-    def ew_names(self):
-        """Names of the equivalent-width parameters, one per feature."""
-        return [f"ew{f}" for f in range(self.n_features)]
-
-    def continuum_names(self):
-        """Names of the continuum parameters ``c0_w`` (level) and ``c1_w`` (slope), per window."""
-        return [f"c{k}_{w}" for w in range(self.n_windows) for k in (0, 1)]
-
-    @property
-    def gauss_b(self):
-        """Largest Gaussian 1/e half-width (km/s) of instrument and fixed intrinsic widths in quadrature."""
-        b_int = 0.0 if self.feature_b is None else float(self.feature_b.max())
-        b_ins = K.instrument_width(self.resolution) if self.resolution else 0.0
-        return math.hypot(b_int, b_ins)
-
-    # -- evaluation -----------------------------------------------------------------------------
-    def profiles(self, vsini, rv, macro, bint=None):
-        """Unit-strength feature profiles on the data pixels, (N, F) (zero outside each feature's window)."""
-        key = (float(vsini), float(rv), float(macro), None if bint is None else float(bint))
-        hit = self._cache.get(key)
-        if hit is not None:
-            return hit
-        b = self.feature_b if bint is None else np.full(self.n_features, float(bint))
-        br = Broadening(vsini=max(vsini, 0.0), limb_darkening=self.limb_darkening, intrinsic_width=float(b.max()),
-                        macroturbulence=max(macro, 0.0), macro_kind=self.macro_kind, rt_mode="joint",
-                        resolution=self.resolution, lsf=self.lsf)
-        npad = _padded_length(self.n_fine, self.dv, br)
-        sigma = _fft.rfftfreq(npad, self.dv)
-        tkey = (key[0], key[2], npad)  # the transform does not depend on rv or the intrinsic width
-        base = self._transforms.get(tkey)
-        if base is None:
-            base = np.zeros(sigma.size, dtype=complex if self.lsf is not None else float)
-            keep = sigma.size
-            if self.lsf is None and br.instrument_b > 0:  # beyond here the instrument's Gaussian is < 1e-13
-                keep = int(np.searchsorted(sigma, math.sqrt(13.0 * math.log(10.0)) / (math.pi * br.instrument_b))) + 1
-            base[:keep] = br.with_(intrinsic_width=0.0).transform(sigma[:keep]) * K.pixel_transform(sigma[:keep], self.dv)
-            if len(self._transforms) > 16:
-                self._transforms.clear()
-            self._transforms[tkey] = base
-        u_rv = C_KMS * math.log1p(rv / C_KMS)
-        fine = np.empty((self.n_features, self.n_fine))
-        for bg in np.unique(b):
-            fsel = np.flatnonzero(b == bg)
-            local = np.full(self.n_features, -1)
-            local[fsel] = np.arange(fsel.size)
-            csel = local[self.comp_feature] >= 0
-            fine[fsel] = synthesize(br, self.dv, self.n_fine, self.comp_offset[csel] + u_rv, self.comp_weight[csel],
-                                    line_window=local[self.comp_feature[csel]], n_windows=fsel.size,
-                                    transform=base * K.gaussian_transform(sigma, bg))
-        cum = np.concatenate([np.zeros((self.n_features, 1)), self.dv * np.cumsum(fine, axis=1)], axis=1)
-        out = np.zeros((self.n_data, self.n_features))
-        for f, (w, _) in enumerate(self.features):
-            out[self.rows[w], f] = self.mats[w] @ cum[f]
-        if len(self._cache) > 32:
-            self._cache.clear()
-        self._cache[key] = out
-        return out
-
-    def evaluate(self, values):
-        """Model flux on the good pixels of all windows, for a dict of parameter values."""
-        return self._parts(values)[0]
-
-    def _parts(self, values):
-        prof = self.profiles(values["vsini"], values["rv"], values.get("macro", 0.0), values.get("bint"))
-        ew = np.array([values[n] for n in self.ew_names()])
-        c0 = np.array([values[f"c0_{w}"] for w in range(self.n_windows)])
-        c1 = np.array([values[f"c1_{w}"] for w in range(self.n_windows)])
-        one_minus_d = 1.0 - prof @ ew
-        cont = c0[self.win] + c1[self.win] * self.x
-        return cont * one_minus_d, prof, ew, cont, one_minus_d
-
-    def jacobian(self, values, names):
-        """Derivatives (N, len(names)) of the model flux: analytic for strengths and continua, forward differences otherwise."""
-        model, prof, ew, cont, omd = self._parts(values)
-        cols = []
-        for name in names:
-            if name.startswith("ew"):
-                cols.append(-cont * prof[:, int(name[2:])])
-            elif name.startswith("c0_") or name.startswith("c1_"):
-                w = int(name[3:])
-                cols.append(np.where(self.win == w, omd * (1.0 if name[1] == "0" else self.x), 0.0))
-            elif name in _NONLINEAR:
-                h = 2e-3 if name == "rv" else 1e-3 * max(abs(values[name]), 0.5)
-                shifted = dict(values, **{name: values[name] + h})
-                cols.append((self.evaluate(shifted) - model) / h)
-            else:  # pragma: no cover - every parameter is covered above
-                raise InputError(f"jacobian: unknown parameter {name!r}")
-        return np.column_stack(cols)
-
-
-def _pixel_mean_matrix(u_edges, good, e0, dv, n_nodes):
-    """Sparse (n_good, n_nodes) matrix: pixel means from the running integral at nodes ``e0 + k dv``."""
-    t = (np.asarray(u_edges) - e0) / dv
-    k = np.clip(np.floor(t).astype(int) - 1, 0, n_nodes - 4)
-    s = t - k  # position within the 4-node stencil k..k+3
-    nodes = np.arange(4.0)
-    lag = np.ones((t.size, 4))
-    for j in range(4):
-        for m in range(4):
-            if m != j:
-                lag[:, j] *= (s - nodes[m]) / (nodes[j] - nodes[m])
-    lag[np.abs(lag) < 1e-13] = 0.0  # exact node hits give clean identity rows
-    width = dv * np.diff(t)
-    good = np.asarray(good)
-    rows = np.repeat(np.arange(good.size), 8)
-    cols = np.concatenate([k[good][:, None] + np.arange(4), k[good + 1][:, None] + np.arange(4)], axis=1).ravel()
-    vals = (np.concatenate([-lag[good], lag[good + 1]], axis=1) / width[good][:, None]).ravel()
-    return sparse.csr_matrix((vals, (rows, cols)), shape=(good.size, n_nodes))

@@ -24,6 +24,7 @@ __all__ = [
     "load_lsf",
     "Broadening",
     "synthesize",
+    "padded_length",
     "composed_kernel",
     "equivalent_width_from_depth",
 ]
@@ -311,7 +312,12 @@ def equivalent_width_from_depth(depth, intrinsic_width, damping=0.0):
     return depth * np.sqrt(np.pi) * intrinsic_width
 
 
-def _padded_length(n_pixels, dv, broadening):
+def padded_length(n_pixels, dv, broadening):
+    """Length of the zero-padded FFT grid for ``n_pixels`` of step ``dv`` under ``broadening``.
+
+    The window is padded by the kernel's half extent (:meth:`Broadening.half_extent`) plus two cells on
+    each side, so the circular convolution equals the linear one, and rounded up to a fast FFT length.
+    """
     margin = int(math.ceil(broadening.half_extent() / dv)) + 2
     return _fft.next_fast_len(n_pixels + 2 * margin, real=True)
 
@@ -376,7 +382,7 @@ def synthesize(
     width = dv if pixel_width is None else float(pixel_width)
     if transform is None and width > 0 and broadening.is_pure_rotation:
         return _synthesize_pure_rotation(broadening, dv, n_pixels, offsets, strengths, window, n_windows, width)
-    npad = _padded_length(n_pixels, dv, broadening)
+    npad = padded_length(n_pixels, dv, broadening)
     sigma = _fft.rfftfreq(npad, dv)
     aliases = None
     if transform is None:

@@ -380,7 +380,7 @@ def sensitivity_study(
     ``differential_candidate``) and no Monte Carlo (first-order errors). A rigid spherical star gives
     zero bias to ~1e-6 and q2/q1 = 1.761 for :math:`\\epsilon` = 0.6 (Reiners & Schmitt 2002 [1]_); the
     biases of a Roche rotator are compared with Townsend, Owocki & Howarth (2004) [2]_ in
-    ``docs/surface-model.md``.
+    ``docs/inclination.md`` (section 3, with the table of measured biases).
 
     *Noiseless mode.* The spectra carry the nominal error :data:`NOISELESS_ERROR` (S/N 10 000) but no noise:
     the ``poor_fit`` flag then means a shape mismatch of the order of 1e-4 of the continuum, not a bad
