@@ -109,3 +109,13 @@ def test_help_texts_read_clearly():
         res = run(cmd, "--help")
         assert res.exit_code == 0
         assert "km/s" in res.output
+
+
+def test_nothing_measured_exits_1_with_reasons(tmp_path):
+    """A line-free spectrum is processed, but nothing can be measured: exit code 1 and the reasons."""
+    w = np.linspace(5000, 5100, 3000)
+    path = tmp_path / "flat.txt"
+    np.savetxt(path, np.c_[w, np.ones_like(w) + 1e-3 * np.random.default_rng(1).standard_normal(w.size)])
+    res = run("measure", path, "--resolution", "50000")
+    assert res.exit_code == 1
+    assert "not_measured" in res.output and "no isolated absorption line" in res.output

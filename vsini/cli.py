@@ -290,7 +290,11 @@ def measure(
     as_json: bool = typer.Option(False, "--json", help="Print one JSON object with the result columns."),
     plot: Optional[Path] = typer.Option(None, help="Figure of the line fits and the Fourier amplitudes (.pdf, .png)."),
 ):
-    """Measure v sin i of one star by profile fitting and by the Fourier first zero."""
+    """Measure v sin i of one star by profile fitting and by the Fourier first zero.
+
+    Exit code 0 when a value or an upper limit was obtained, 1 when neither method could measure
+    anything (the reasons are printed), 2 for bad input.
+    """
     from .compare import measure_star
     from .errors import InputError
     from .io import read_spectrum
@@ -319,6 +323,8 @@ def measure(
         save_figure(fig, plot)
         if not as_json:
             typer.echo(f"wrote {plot}")
+    if m.row["adopted_method"] == "none":
+        raise typer.Exit(1)  # printed above; the exit code tells scripts that nothing was measured
 
 
 def main():  # pragma: no cover - entry point
