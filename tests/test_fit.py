@@ -19,6 +19,7 @@ from vsini.fit import DELTA_CHI2_2PARAM, chi2_map, fit_vsini
 from vsini.flags import FLAGS, check_flags, describe
 from vsini.grid import C_KMS
 from vsini.kernels import instrument_width
+from vsini.lines import Line
 from vsini.model import load_lsf
 from vsini.simulate import simulate_spectrum
 from vsini.spectrum import Spectrum
@@ -315,3 +316,139 @@ def test_flag_vocabulary():
     assert check_flags(["few_lines", "at_bound", "few_lines"]) == ("at_bound", "few_lines")
     with pytest.raises(InputError, match="unknown flag 'shaky'"):
         check_flags(["shaky"])
+
+
+# --------------------------------------------------------------------------------------------- detected lines, bounds
+
+
+HAND_LINES = (5250.2, 5302.3, 5324.2, 5365.4, 5371.5, 5383.4)
+
+
+@pytest.fixture(scope="module")
+def hand_fit():
+    """The lead's hand test (v sin i 22, zeta_RT 4, R 60 000, S/N 150, seed 4), fitted from detected lines.
+
+    Detection is replaced by the centres the old detector returned: 5383.29 for the 5383.40 line
+    (0.11 A = 6 km/s off) and a noise dip at 5350.24 A.
+    """
+    import vsini.fit as fit_module
+
+    spec = simulate_spectrum(";".join(f"{w}:{d}" for w, d in zip(HAND_LINES, (0.5, 0.6, 0.6, 0.5, 0.7, 0.6), strict=True)),
+                             wave_range=(5240, 5390), step=0.03, vsini=22, resolution=60000, macroturbulence=4,
+                             snr=150, rng=4)
+    old = (5250.18, 5302.30, 5324.21, 5350.24, 5365.36, 5371.51, 5383.29)
+    with pytest.MonkeyPatch.context() as mp:
+        mp.setattr(fit_module, "detect_lines", lambda s, resolution=None: tuple(Line(w, "", (), f"auto {w:.2f}") for w in old))
+        return spec, fit_vsini(spec, resolution=60000)
+
+
+def test_detected_lines_get_free_centres_and_no_rv(hand_fit):
+    """Regression (fit polish, defect 1): detected centres were used as exact rest wavelengths with one
+    shared RV, so the 5383.29 line was fitted with a visibly shifted model and RV came out as 1.37 km/s.
+
+    Now each detected line has its own centre: the fitted one lands on 5383.40 within 3 sigma, its window
+    fits as well as the others, and no radial velocity is reported (NaN, said so in the summary).
+    """
+    _, r = hand_fit
+    assert r.lines_detected and math.isnan(r.rv_kms) and math.isnan(r.rv_err_kms)
+    assert "radial velocity: not measured" in r.summary() and math.isnan(r.as_row()["rv_fit"])
+    (lf,) = [lf for lf in r.lines if abs(lf.lines[0].wavelength - 5383.4) < 0.5]
+    err_a = lf.centre_shift_err_kms[0] / C_KMS * 5383.4
+    assert abs(lf.lines[0].wavelength - 5383.40) < 3.0 * err_a < 0.05
+    assert lf.centre_shift_kms[0] == pytest.approx(C_KMS * math.log(5383.40 / 5383.29), abs=3 * lf.centre_shift_err_kms[0])
+    assert lf.chi2 / lf.n_pixels < 1.4  # 1.76 with the shared-RV model
+    assert abs(r.vsini_kms - 22.0) < 3.0 * r.vsini_err_kms
+    assert "at_bound" not in r.flags
+
+
+def test_detected_centre_beyond_its_bound_is_recentred(hand_fit, monkeypatch):
+    """A detected centre 0.4 A (22 km/s) off, beyond the +-half-FWHM bound of its shift, ends at the bound
+    in the first pass; the line is moved there and fitted again until its centre is free of the bound."""
+    import vsini.fit as fit_module
+
+    spec, ref = hand_fit
+    centres = (5250.18, 5302.30, 5324.21, 5365.36, 5371.51, 5383.00)
+    monkeypatch.setattr(fit_module, "detect_lines",
+                        lambda s, resolution=None: tuple(Line(w, "", (), f"auto {w:.2f}") for w in centres))
+    r = fit_vsini(spec, resolution=60000)
+    lf = r.lines[-1]
+    assert abs(lf.centre_shift_kms[0]) < 0.9 * r.model.shift_bound and "at_bound" not in r.flags
+    assert abs(lf.lines[0].wavelength - 5383.40) < 3.0 * lf.centre_shift_err_kms[0] / C_KMS * 5383.4
+    assert abs(r.vsini_kms - ref.vsini_kms) < 0.5 * ref.vsini_err_kms
+
+
+def test_insignificant_detected_line_is_dropped(hand_fit):
+    """Regression (fit polish, defect 2): a detected noise dip whose fitted equivalent width is below
+    3 sigma is dropped after the fit with the reason "not significant"."""
+    _, r = hand_fit
+    (d,) = r.dropped
+    assert d.line.wavelength == 5350.24 and d.reason.startswith("not significant")
+    assert r.n_lines == 6 and "lines_dropped" in r.flags
+
+
+def test_macroturbulence_at_zero_gives_upper_limit(hand_fit):
+    """Regression (fit polish, defect 3): a macroturbulence at its lower bound was shown as
+    "0.00 +/- 609555 km/s". Its error is now NaN and the upper limit is where the profile chi-square
+    (v sin i and the rest re-fitted) has risen by 4 (Press et al. 2007, Numerical Recipes 3rd ed., 15.6)."""
+    from vsini.fit import MACRO_LIMIT_DCHI2, _lmfit
+
+    _, r = hand_fit
+    assert r.macroturbulence_kms < 0.01 and math.isnan(r.macroturbulence_err_kms)
+    limit = r.macroturbulence_upper_limit_kms
+    assert 1.0 < limit < 15.0 and r.as_row()["macroturbulence_upper_limit"] == limit
+    assert f"macroturbulence: < {limit:.2f} km/s (upper limit" in r.summary()
+    p = r.params
+    from vsini.fit import _make_params
+
+    start = _make_params(r.model, dict(p, macro=limit), set(r.free) - {"macro"})
+    prof = _lmfit(r.model, start, r.model.y, r.sigma, False)
+    assert prof.chisqr - r.chi2 == pytest.approx(MACRO_LIMIT_DCHI2, abs=0.15)
+    cmap = chi2_map(r, [r.vsini_best_kms], n=3)  # default macro grid: 0 .. 1.5 x the limit
+    assert cmap.macro_kms[0] == 0.0 and cmap.macro_kms[-1] == pytest.approx(1.5 * limit)
+
+
+def test_macro_limit_in_results_row_and_cli(hand_fit, tmp_path):
+    """The results row (vsini.compare) carries macroturbulence_upper_limit; `vsini measure` prints
+    "macroturbulence: < X km/s (upper limit)" and says that no radial velocity was measured."""
+    from typer.testing import CliRunner
+
+    from vsini.cli import app
+    from vsini.compare import RESULT_COLUMNS
+    from vsini.io import write_spectrum
+
+    spec, _ = hand_fit
+    assert RESULT_COLUMNS["macroturbulence_upper_limit"] == "km/s"
+    write_spectrum(spec, tmp_path / "hand.fits")
+    out = CliRunner().invoke(app, ["measure", str(tmp_path / "hand.fits"), "--resolution", "60000", "--method", "fit"])
+    assert out.exit_code == 0, out.output
+    assert "km/s (upper limit)" in out.output and "macroturbulence:   <" in out.output
+    assert "radial velocity:   not measured" in out.output and "5350" not in out.output
+
+
+def test_product_passes_leave_the_answer_unchanged(macro_star, monkeypatch):
+    """The passes use the product approximation of rotation x RT macroturbulence and only the final fit
+    the joint disc integral (speed); the answer must equal an all-joint fit to << its error."""
+    import vsini.fit as fit_module
+    from vsini.linemodel import JointModel
+
+    class AlwaysJoint(JointModel):
+        def __init__(self, *args, rt_mode="joint", **kwargs):
+            super().__init__(*args, rt_mode="joint", **kwargs)
+
+    spec, centres, r = macro_star
+    monkeypatch.setattr(fit_module, "JointModel", AlwaysJoint)
+    j = fit_vsini(spec, lines=centres, resolution=60000, macroturbulence="free")
+    assert r.model.rt_mode == "joint"
+    assert abs(r.vsini_kms - j.vsini_kms) < 0.05 * r.vsini_err_kms
+    assert abs(r.macroturbulence_kms - j.macroturbulence_kms) < 0.15 * r.macroturbulence_err_kms
+
+
+def test_joint_model_rejects_bad_arguments(macro_star):
+    _, _, r = macro_star
+    with pytest.raises(InputError, match="rt_mode must be one of"):
+        r.model.with_rt_mode("sum")
+    with pytest.raises(InputError, match="rt_mode must be one of"):
+        type(r.model)(r.model.windows, limb_darkening=0.6, resolution=60000, lsf=None, intrinsic_widths=None,
+                      rt_mode="sum")
+    with pytest.raises(InputError, match="unknown parameter 'zz'"):
+        r.model.jacobian(dict(r.params), ["zz"])

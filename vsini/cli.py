@@ -256,8 +256,14 @@ def _print_measurement(m, spectrum_name):
     if math.isfinite(r["difference_sigma"]):
         typer.echo(f"  fit - Fourier:     {r['difference_sigma']:+.2f} sigma")
     typer.echo(f"  q2/q1:             {_fmt(r['q2_q1'], r['q2_q1_err'], 3)}")
-    typer.echo(f"  macroturbulence:   {_fmt(r['macroturbulence'], r['macroturbulence_err'])} km/s")
-    typer.echo(f"  radial velocity:   {_fmt(r['rv'])} km/s")
+    if math.isfinite(r.get("macroturbulence_upper_limit", math.nan)):
+        typer.echo(f"  macroturbulence:   < {r['macroturbulence_upper_limit']:.2f} km/s (upper limit)")
+    else:
+        typer.echo(f"  macroturbulence:   {_fmt(r['macroturbulence'], r['macroturbulence_err'])} km/s")
+    if m.fit is not None and m.fit.lines_detected:
+        typer.echo("  radial velocity:   not measured (detected line centres are observed wavelengths)")
+    else:
+        typer.echo(f"  radial velocity:   {_fmt(r['rv'])} km/s")
     typer.echo(f"  lines used:        {r['n_lines']}    S/N per pixel: {_fmt(r['snr'], digits=0)}")
     if m.fit is not None and m.fit.dropped:
         for d in m.fit.dropped:

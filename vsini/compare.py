@@ -60,6 +60,7 @@ RESULT_COLUMNS = {
     "q2_q1_err": None,
     "macroturbulence": "km/s",
     "macroturbulence_err": "km/s",
+    "macroturbulence_upper_limit": "km/s",
     "rv": "km/s",
     "n_lines": None,
     "snr": None,
@@ -242,6 +243,8 @@ def measure_star(
         elif isinstance(macroturbulence, (int, float)) and not isinstance(macroturbulence, bool):
             macro_value = float(macroturbulence)
         fourier_rv = fit.rv_kms if fit is not None and math.isfinite(fit.rv_kms) else rv
+        if fit is not None and fit.lines_detected:  # the kept lines carry observed (fitted) centres: no shift
+            fourier_rv = 0.0
         # the Fourier method reuses the lines the fit kept (detected or screened), else the user's choice
         kept = [ln for window in fit.lines for ln in window.lines] if fit is not None and fit.lines else []
         lines_for_fourier = kept or lines
@@ -291,6 +294,7 @@ def measure_star(
         "q2_q1_err": _num(four.q2_q1_err) if four else _NAN,
         "macroturbulence": _num(fit.macroturbulence_kms) if fit else _NAN,
         "macroturbulence_err": _num(fit.macroturbulence_err_kms) if fit else _NAN,
+        "macroturbulence_upper_limit": _num(fit.macroturbulence_upper_limit_kms) if fit else _NAN,
         "rv": _num(fit.rv_kms) if fit else (_num(rv) if rv is not None else _NAN),
         "n_lines": int(fit.n_lines) if fit else int(four.n_lines) if four else 0,
         "snr": snr,

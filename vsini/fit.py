@@ -13,7 +13,8 @@ and their noise stays independent. Limb darkening is fixed.
 Uncertainties come from the fit's covariance (scaled by the reduced chi-square when the spectrum has no
 uncertainties) or from Monte Carlo noise resampling. When rotation is not resolved the result is an
 upper limit (see :func:`detection_limit` and ``docs/fitting.md``); so is a macroturbulence that
-ends at zero (see :data:`MACRO_LIMIT_DCHI2`).
+ends at zero (see :data:`MACRO_LIMIT_DCHI2`). Limits, chi-square maps and the least-squares primitives are
+in :mod:`vsini.fitlimits` (re-exported here).
 """
 
 from __future__ import annotations
@@ -25,6 +26,19 @@ import numpy as np
 
 from . import kernels as K
 from .errors import FitError, InputError
+from .fitlimits import (
+    DELTA_CHI2_2PARAM,
+    DETECTION_DCHI2,
+    MACRO_LIMIT_DCHI2,
+    MACRO_MAX,
+    Chi2Map,
+    _delta_chi2_zero,
+    _lmfit,
+    _macro_upper_limit,
+    _make_params,
+    chi2_map,
+    detection_limit,
+)
 from .flags import check_flags
 from .grid import C_KMS
 from .limbdark import LimbDarkening, as_limb_darkening
@@ -33,9 +47,9 @@ from .lines import (
     _FWHM_PER_B,
     DroppedLine,
     Line,
+    _emission_excesses,
     as_lines,
     detect_lines,
-    emission_excess,
     estimate_rv,
     extract_windows,
     rotation_fwhm_factor,
@@ -45,20 +59,8 @@ from .lines import (
 __all__ = ["LineFit", "FitResult", "Chi2Map", "fit_vsini", "detection_limit", "chi2_map",
            "DELTA_CHI2_2PARAM", "DETECTION_DCHI2", "MACRO_LIMIT_DCHI2"]
 
-#: Delta chi-square of the 68.3 %, 95.4 % and 99.73 % joint confidence regions of two parameters
-#: (Press et al. 2007, Numerical Recipes 3rd ed., section 15.6, table of Delta chi^2 for nu = 2).
-DELTA_CHI2_2PARAM = {1: 2.30, 2: 6.18, 3: 11.8}
-#: Rotation counts as detected when fixing v sin i = 0 raises chi-square by at least this (3 sigma for one
-#: parameter, Press et al. 2007, Numerical Recipes 3rd ed., sec. 15.6); see :func:`detection_limit`.
-DETECTION_DCHI2 = 9.0
-#: A macroturbulence that ends at zero is reported as the upper limit where the profile chi-square (every
-#: other free parameter re-fitted) has risen by this much: 2 sigma for one parameter (Press et al. 2007,
-#: Numerical Recipes 3rd ed., sec. 15.6), about a 97.7 % one-sided limit at the bound.
-MACRO_LIMIT_DCHI2 = 4.0
 MACRO_AT_ZERO = 0.01  # km/s: a fitted macroturbulence below this sits at its lower bound
 EW_SIGNIFICANCE = 3.0  # a detected line whose fitted equivalent width is below 3 sigma is dropped
-VSINI_MAX = 1000.0  # km/s, upper bound of the fit
-MACRO_MAX = 150.0  # km/s
 
 
 # --------------------------------------------------------------------------------------------- results
@@ -173,38 +175,6 @@ def _as_float(x):
 
 
 # --------------------------------------------------------------------------------------------- fitting
-
-
-def _make_params(model, start, free):
-    import lmfit
-
-    p = lmfit.Parameters()
-    p.add("vsini", value=min(max(start["vsini"], 0.05), VSINI_MAX - 1), min=0.0, max=VSINI_MAX, vary="vsini" in free)
-    p.add("rv", value=start["rv"], min=start["rv"] - 100.0, max=start["rv"] + 100.0, vary="rv" in free)
-    p.add("macro", value=start.get("macro", 0.0), min=0.0, max=MACRO_MAX, vary="macro" in free)
-    if model.feature_b is None:
-        p.add("bint", value=start["bint"], min=0.05, max=60.0, vary=True)
-    bound = model.shift_bound
-    for name in model.shift_names():
-        p.add(name, value=float(np.clip(start.get(name, 0.0), -bound, bound)), min=-bound, max=bound, vary=True)
-    for name in model.ew_names() + model.continuum_names():
-        p.add(name, value=start[name], vary=True)
-    return p
-
-
-def _lmfit(model, params, y, sigma, scale_covar):
-    """Least-squares fit (Levenberg-Marquardt) of ``model`` to ``y`` with analytic-or-numerical derivatives."""
-    import lmfit
-
-    def resid(p, data):
-        return (model.evaluate(p.valuesdict()) - data) / sigma
-
-    def jac(p, data):
-        names = [n for n, par in p.items() if par.vary]
-        return model.jacobian(p.valuesdict(), names) / sigma[:, None]
-
-    mini = lmfit.Minimizer(resid, params, fcn_args=(y,), scale_covar=scale_covar)
-    return mini.minimize(method="leastsq", Dfun=jac, col_deriv=0)
 
 
 def _emission_bump(resid, n=4):
@@ -349,8 +319,9 @@ def fit_vsini(spectrum, *, lines=None, resolution=None, limb_darkening=0.6, macr
         rv_est, fwhm = (0.0 if rv0 is None else rv0), float("nan")
     rv0 = rv_est if rv0 is None else rv0
     emission = {}  # lines whose flux rises above the continuum (8 sigma)
-    for ln in line_list:
-        excess = emission_excess(spectrum, ln, rv=rv0, half_width=3.0 * b_ins + 30.0, smooth_kms=max(narrow, 2 * step))
+    excesses = _emission_excesses(spectrum, line_list, rv=rv0, half_width=3.0 * b_ins + 30.0,
+                                  smooth_kms=max(narrow, 2 * step))
+    for ln, excess in zip(line_list, excesses, strict=True):
         if excess > 8.0:
             emission[ln] = f"emission: the flux rises {excess:.0f} sigma above the continuum"
     if emission and len(emission) == len(line_list):
@@ -404,13 +375,14 @@ def fit_vsini(spectrum, *, lines=None, resolution=None, limb_darkening=0.6, macr
         n_window_passes += 1
         new_hw = window_half_width(state["vsini"], math.hypot(b_ins, state["bint"] if free_b else b_guess),
                                    state["macro"], step_kms=step)
-        if 0.7 * hw < new_hw < 1.2 * hw or n_window_passes >= max_passes:  # margins are generous
+        pinned = any(abs(res.params[n].value) >= 0.999 * model.shift_bound for n in model.shift_names())
+        if (0.7 * hw < new_hw < 1.2 * hw and not pinned) or n_window_passes >= max_passes:  # margins are generous
             break
         if detected:  # start the next pass from the fitted centres
             active, ew_guess = _recentre(model, res, active, ew_guess)
     if final_mode:
         model = model.with_rt_mode(final_mode)
-        res = _lmfit(model, res.params.copy(), model.y, sigma, scale)
+        res = _lmfit(model, res.params, model.y, sigma, scale)
     dropped = tuple(_dropped_items(screened)) + dropped_x
     return _build_result(spectrum, model, res, sigma, scale, dropped, ld, resolution, macro_mode, free_b, mc, rng,
                          detected)
@@ -473,39 +445,6 @@ def _noise(model, spectrum):
     level = float(np.median(model.y))
     s = level / snr if np.isfinite(snr) and snr > 0 else 0.01 * level
     return np.full(model.n_data, s), True
-
-
-def detection_limit(model, values, free, sigma, *, n_sigma=3.0):
-    """The smallest v sin i the data can tell from zero, from the Fisher information at v sin i = 0.
-
-    Near zero the model depends on :math:`s = (v\\sin i)^2` (the profile is even in v sin i), so the
-    bound is computed for :math:`s`: :math:`\\sigma_s^2 = (F^{-1})_{ss}` with the full Fisher matrix
-    :math:`F = J^T J` of all free parameters (columns divided by the pixel sigma). The detection limit
-    is :math:`v_\\mathrm{det} = \\sqrt{n\\,\\sigma_s}`; it generalises the :math:`\\sqrt{2n w_0 \\delta w/k}`
-    rule of REFERENCES section 9 ("Small-v sin i behaviour", derived there from
-    :math:`w^2 = w_0^2 + k (v\\sin i)^2`) to the full profile and to any set of free parameters.
-
-    Returns
-    -------
-    v_det : float
-        km/s.
-    sigma_s : float
-        One-sigma uncertainty of :math:`(v\\sin i)^2` at zero rotation, km^2/s^2.
-    """
-    base = dict(values, vsini=0.0)
-    delta = 0.25 * max(model.gauss_b, 0.5)
-    cols = [(model.evaluate(dict(base, vsini=delta)) - model.evaluate(base)) / delta**2]
-    others = [n for n in free if n != "vsini"]
-    if "macro" in others and base["macro"] < delta:  # even in zeta too: use zeta^2 near zero
-        base["macro"] = 0.0
-        others.remove("macro")
-        cols.append((model.evaluate(dict(base, macro=delta)) - model.evaluate(base)) / delta**2)
-    if others:
-        cols.append(model.jacobian(base, others))
-    jac = np.column_stack(cols) / sigma[:, None]
-    cov = np.linalg.pinv(jac.T @ jac)
-    sigma_s = math.sqrt(max(cov[0, 0], 0.0))
-    return math.sqrt(n_sigma * sigma_s), sigma_s
 
 
 def _build_result(spectrum, model, res, sigma, scale, dropped, ld, resolution, macro_mode, free_b, mc, rng,
@@ -588,70 +527,13 @@ def _build_result(spectrum, model, res, sigma, scale, dropped, ld, resolution, m
     )
 
 
-def _delta_chi2_zero(model, res, sigma):
-    """Chi-square increase when v sin i is fixed at 0 and every other free parameter is re-fitted."""
-    p = res.params.copy()
-    p["vsini"].set(value=0.0, vary=False)
-    zero = _lmfit(model, p, model.y, sigma, False)
-    return float(zero.chisqr - res.chisqr)
-
-
-def _macro_upper_limit(model, res, sigma, factor):
-    """Macroturbulence (km/s) where the profile chi-square rises by :data:`MACRO_LIMIT_DCHI2` above the best fit.
-
-    At each trial :math:`\\zeta` every other free parameter is fitted again (profile likelihood). Near
-    the bound the profile depends on :math:`s = \\zeta^2`, so the rise is modelled as
-    :math:`\\Delta\\chi^2 = a s + b s^2` through the trials made so far and solved for the level; a few
-    trials (typically 3-4) reach it to 0.1 in chi-square. ``factor`` divides chi-square (the reduced
-    chi-square when the spectrum had no uncertainties). Returns :data:`MACRO_MAX` if even that is allowed.
-    """
-    warm = res.params.copy()
-    warm["macro"].set(vary=False)
-
-    def rise(zeta):
-        warm["macro"].set(value=zeta)
-        fit = _lmfit(model, warm, model.y, sigma, False)
-        for name, par in fit.params.items():  # start the next trial from this one
-            warm[name].set(value=par.value)
-        return (fit.chisqr - res.chisqr) / factor
-
-    level, s_max = MACRO_LIMIT_DCHI2, MACRO_MAX**2
-    s_try = max(model.gauss_b, 1.0) ** 2
-    points = []  # (s, rise)
-    lo, hi = 0.0, np.inf  # bracket in s
-    for _ in range(12):
-        d = rise(math.sqrt(s_try))
-        points.append((s_try, d))
-        if abs(d - level) < 0.1:
-            return math.sqrt(s_try)
-        lo, hi = (max(lo, s_try), hi) if d < level else (lo, min(hi, s_try))
-        if lo >= s_max:
-            return MACRO_MAX
-        pts = sorted(points, key=lambda q: abs(q[1] - level))[:2]
-        if len(pts) == 1 or abs(pts[0][0] - pts[1][0]) < 1e-12:
-            a, b = 0.0, max(pts[0][1], 1e-3) / pts[0][0] ** 2
-        else:
-            (s1, d1), (s2, d2) = pts
-            b = (d1 / s1 - d2 / s2) / (s1 - s2)
-            a = d1 / s1 - b * s1
-        if b > 0:
-            s_new = (-a + math.sqrt(max(a * a + 4.0 * b * level, 0.0))) / (2.0 * b)
-        else:
-            s_new = level / a if a > 0 else np.inf
-        s_new = min(s_new, 16.0 * s_try, s_max)
-        if not lo < s_new < hi:  # outside the bracket: bisect it (or grow it)
-            s_new = 0.5 * (lo + hi) if np.isfinite(hi) else min(4.0 * max(lo, s_try), s_max)
-        s_try = s_new
-    return math.sqrt(0.5 * (lo + hi)) if np.isfinite(hi) else MACRO_MAX
-
-
 def _monte_carlo(model, params, sig_eff, n, rng):
     """Refit ``n`` noise realisations around the best-fit model; returns (n, 2) v sin i and macroturbulence."""
     gen = np.random.default_rng(rng)
     best = model.evaluate(params.valuesdict())
     out = np.empty((n, 2))
     for k in range(n):
-        res = _lmfit(model, params.copy(), best + sig_eff * gen.standard_normal(best.size), sig_eff, False)
+        res = _lmfit(model, params, best + sig_eff * gen.standard_normal(best.size), sig_eff, False)
         out[k] = res.params["vsini"].value, res.params["macro"].value
     return out
 
@@ -679,72 +561,3 @@ def _line_fits(model, res, sig_eff):
             flux_err=sig_eff[r] / cont[r], centre_shift_kms=shifts, centre_shift_err_kms=shift_errs))
     return tuple(out)
 
-
-# --------------------------------------------------------------------------------------------- chi-square map
-
-
-@dataclass(frozen=True, eq=False)
-class Chi2Map:
-    """Chi-square over a (v sin i, macroturbulence) grid, every other parameter re-fitted at each node.
-
-    ``chi2[i, j]`` belongs to ``macro_kms[i]``, ``vsini_kms[j]``. ``levels`` are the Delta chi-square
-    values of the 1, 2 and 3 sigma joint regions of two parameters (:data:`DELTA_CHI2_2PARAM`).
-    When the spectrum had no uncertainties, chi-square is divided by the best fit's reduced chi-square
-    (``scaled`` is True).
-    """
-
-    vsini_kms: np.ndarray
-    macro_kms: np.ndarray
-    chi2: np.ndarray
-    chi2_min: float
-    best: tuple
-    levels: dict
-    scaled: bool
-    name: str = ""
-
-
-def chi2_map(result, vsini_grid=None, macro_grid=None, *, n=15):
-    """Chi-square map over (v sin i, macroturbulence) for a :class:`FitResult` (profile likelihood).
-
-    Parameters
-    ----------
-    result : FitResult
-    vsini_grid, macro_grid : (M,) ndarray, km/s, optional
-        Default: ``n`` points within 5 sigma of the best fit (clipped at 0; the detection limit
-        stands in for an unmeasured v sin i error).
-    n : int
-        Points per default grid.
-
-    Returns
-    -------
-    Chi2Map
-    """
-    model = result.model
-    if model is None:
-        raise InputError("chi2_map: the result carries no model (build it with fit_vsini)")
-    v0, m0 = result.vsini_best_kms, result.params.get("macro", 0.0)
-    v_err = result.vsini_err_kms if np.isfinite(result.vsini_err_kms) else result.detection_limit_kms
-    m_err = result.macroturbulence_err_kms if np.isfinite(result.macroturbulence_err_kms) else 0.5 * max(m0, 2.0)
-    if vsini_grid is None:
-        vsini_grid = np.linspace(max(v0 - 5.0 * v_err, 0.0), v0 + 5.0 * v_err, n)
-    if macro_grid is None and np.isfinite(result.macroturbulence_upper_limit_kms):  # zeta at 0: up to the limit
-        macro_grid = np.linspace(0.0, 1.5 * result.macroturbulence_upper_limit_kms, n)
-    elif macro_grid is None:
-        macro_grid = np.linspace(max(m0 - 5.0 * m_err, 0.0), m0 + 5.0 * m_err, n)
-    vs, ms = np.asarray(vsini_grid, dtype=float), np.asarray(macro_grid, dtype=float)
-    if np.any(vs < 0) or np.any(ms < 0) or vs.ndim != 1 or ms.ndim != 1:
-        raise InputError("chi2_map: grids must be 1-D and non-negative (km/s)")
-    sigma, scale = result.sigma, result.scaled_errors
-    best = _make_params(model, result.params, set(result.free) - {"vsini", "macro"})
-    chi2 = np.empty((ms.size, vs.size))
-    for i, m in enumerate(ms):
-        start = best.copy()
-        for j, v in enumerate(vs):
-            start["vsini"].set(value=v, vary=False)
-            start["macro"].set(value=m, vary=False)
-            res = _lmfit(model, start, model.y, sigma, False)
-            chi2[i, j] = res.chisqr
-            start = res.params
-    factor = result.redchi if scale else 1.0
-    chi2 = chi2 / factor
-    return Chi2Map(vs, ms, chi2, float(result.chi2 / factor), (v0, m0), dict(DELTA_CHI2_2PARAM), scale, result.name)

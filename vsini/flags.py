@@ -19,7 +19,7 @@ FLAGS: dict[str, str] = {
     "lines_dropped": "some lines were left out (outside the spectrum, in a gap, not detected, emission or blended)",
     "no_lines": "no usable line: nothing was measured",
     "fit_failed": "the minimiser did not converge or could not estimate uncertainties",
-    "at_bound": "a fitted parameter ended at a bound of its allowed range",
+    "at_bound": "a fitted parameter ended at a limit of its allowed range (the top for v sin i and macroturbulence; either end for the radial velocity, the intrinsic width and a detected line's centre): its error is unreliable. Zero v sin i or macroturbulence is not flagged: it is reported as an upper limit",
     "macro_degenerate": "v sin i and macroturbulence are strongly correlated (|r| > 0.9): their split is unreliable",
     "poor_fit": "reduced chi-square above 3 with given uncertainties: the model does not describe the lines well",
     "undersampled": "fewer than 2 pixels per resolution element",

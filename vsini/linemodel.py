@@ -93,8 +93,10 @@ class JointModel:
             x.append((u - 0.5 * (win.u[-1] + win.u[0])) / half)
             win_idx.append(np.full(good.size, w))
         self.rows, self.mats = rows, mats
-        self.window_features = [np.array([f for f, (fw, _) in enumerate(self.features) if fw == w], dtype=int)
-                                for w in range(self.n_windows)]
+        # one sparse product for all features: feature f's block maps its running integral to its window's pixels
+        self._pixel_map = sparse.block_diag([mats[w] for w, _ in self.features], format="csr")
+        self._out_rows = np.concatenate([np.arange(rows[w].start, rows[w].stop) for w, _ in self.features])
+        self._out_cols = np.concatenate([np.full(rows[w].stop - rows[w].start, f) for f, (w, _) in enumerate(self.features)])
         self.y = np.concatenate(y)
         self.err = None if any(e is None for e in err) else np.concatenate(err)
         self.x, self.win = np.concatenate(x), np.concatenate(win_idx)
@@ -202,8 +204,7 @@ class JointModel:
         np.cumsum(fine, axis=1, out=cum[:, 1:])
         cum *= self.dv
         out = np.zeros((self.n_data, self.n_features))
-        for w, feats in enumerate(self.window_features):
-            out[self.rows[w], feats[0] : feats[-1] + 1] = self.mats[w] @ cum[feats].T
+        out[self._out_rows, self._out_cols] = self._pixel_map @ cum.ravel()
         if len(self._cache) > 32:
             self._cache.clear()
         self._cache[key] = out

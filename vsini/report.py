@@ -78,6 +78,7 @@ COLUMN_DESCRIPTIONS = {
     "q2_q1_err": "one-sigma uncertainty of q2_q1",
     "macroturbulence": "radial-tangential macroturbulence of the fit (fitted or fixed)",
     "macroturbulence_err": "one-sigma uncertainty of the fitted macroturbulence",
+    "macroturbulence_upper_limit": "upper limit of the macroturbulence when the fit cannot resolve it",
     "rv": "radial velocity from the fit",
     "n_lines": "number of lines used",
     "snr": "signal-to-noise ratio per pixel of the spectrum",

@@ -269,6 +269,9 @@ def read_starlist(path):
     try:
         table = Table.read(path, format=fmt)
     except InconsistentTableError as e:
+        if fmt == "ascii.ecsv":
+            raise SpectrumFileError(path, "star list is not a valid ECSV table (it must start with the line "
+                                          "'# %ECSV 1.0'); write it with astropy or use CSV") from e
         raise SpectrumFileError(path, "star list cannot be read: the rows have different numbers of columns; "
                                       "write one star a row with the same columns as the header") from e
     except (OSError, ValueError, TypeError, KeyError, IndexError, UnicodeDecodeError) as e:
