@@ -54,7 +54,8 @@ def test_physics_modules_do_not_import_matplotlib():
     from pathlib import Path
 
     for name in ("kernels", "limbdark", "model", "grid", "spectrum", "surface", "fourier", "ftransform", "fwindows",
-                 "zeros", "fit", "lines", "inclination", "deprojection", "sensitivity", "simulate", "compare"):
+                 "zeros", "fit", "fitlimits", "lines", "linesets", "linemodel", "inclination", "deprojection",
+                 "sensitivity", "simulate", "compare"):
         path = Path(vsini.__file__).parent / f"{name}.py"
         if not path.exists():
             continue
