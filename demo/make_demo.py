@@ -10,7 +10,9 @@ an invented instrument whose tabulated line-spread function is ``kernels/lsf_exa
   radial-tangential macroturbulence, measured with the shipped ``fgk-optical`` lines;
 * a macroturbulent giant (v sin i = 6 km/s, zeta_RT = 8 km/s);
 * a solar-like differential rotator (alpha = 0.3, inclination 60 deg, v_eq = 52 km/s) integrated over
-  the stellar disc with :mod:`vsini.surface` rather than with the standard kernel;
+  the stellar disc with :mod:`vsini.surface` rather than with the standard kernel (no macroturbulence,
+  and the star list says so with macroturbulence 0, so that a low q2/q1 can be read as differential
+  rotation);
 * hot fast rotators from 60 to 250 km/s measured with the ``a-optical`` Fe II lines (set per star in the
   star list, with macroturbulence off: negligible next to rotation);
 * one low signal-to-noise star and one broken file (a truncated FITS file).
@@ -64,7 +66,7 @@ STARS = [
     ("LAN-015", "fgk", 6900, 4.1, 60.0, 7.0, 200, "fits", "", "", ""),
     ("LAN-016", "fgk", 5600, 4.5, 11.0, 3.2, 30, "fits", "", "", ""),
     ("LAN-017", "fgk", 4800, 2.5, 6.0, 8.0, 200, "fits", "", "", ""),
-    ("LAN-018", "diff", 6500, 4.2, 45.0, 0.0, 300, "fits", "off", 2.1, 2.16),
+    ("LAN-018", "diff", 6500, 4.2, 45.0, 0.0, 300, "fits", "0", 2.1, 2.16),
     ("LAN-019", "hot", 7400, 4.1, 60.0, 0.0, 220, "fits", "off", "", ""),
     ("LAN-020", "hot", 7800, 4.1, 75.0, 0.0, 200, "csv", "off", "", ""),
     ("LAN-021", "hot", 8200, 4.1, 95.0, 0.0, 250, "fits", "off", "", ""),

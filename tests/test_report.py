@@ -183,7 +183,7 @@ def test_survey_figures_draw_limits():
     ax = plot_vsini_distribution(t)
     labels = [text.get_text() for text in ax.get_legend().get_texts()]
     assert labels == ["measured (1)", "upper limits (1)"]
-    assert any(p.get_hatch() == "////" for p in ax.patches)
+    assert any(p.get_hatch() == "////" and p.get_visible() for p in ax.patches)
     plt.close("all")
     empty = t[2:]
     ax = plot_vsini_distribution(empty)

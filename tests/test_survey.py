@@ -213,8 +213,8 @@ def test_resume_after_kill(serial_run, star_list, tmp_path, monkeypatch):
 
         real = vsini.compare.measure_star
 
-        def slow(spectrum, **kwargs):  # slow enough to be killed in the middle of the list
-            time.sleep(0.5)
+        def slow(spectrum, **kwargs):  # T-3 (4th row) takes long: the kill lands in the middle of the list
+            time.sleep(10.0 if kwargs["name"] == "T-3" else 0.2)
             return real(spectrum, **kwargs)
 
         vsini.compare.measure_star = slow
@@ -250,12 +250,22 @@ def test_resume_after_kill(serial_run, star_list, tmp_path, monkeypatch):
     same_table(Table.read(out), serial_run[1])
 
 
-def test_resume_refuses_other_options(star_list, tmp_path):
+def test_resume_refuses_other_options_or_list(star_list, tmp_path):
     out = tmp_path / "results.ecsv"
     with pytest.raises(_Interrupt):
         run_survey(star_list / "list.csv", out, defaults=DEFAULTS, jobs=1, progress=_StopAfter(1))
     with pytest.raises(InputError, match=r"different options \(resolution\)"):
         run_survey(star_list / "list.csv", out, defaults=dict(DEFAULTS, resolution=50000.0), jobs=1, resume=True)
+    other = tmp_path / "other.csv"
+    other.write_text("star,spectrum\nZ-9,x.fits\n")
+    with pytest.raises(InputError, match="row 1 of the journal is star 'T-1' but the star list has 'Z-9'"):
+        run_survey(other, out, defaults=DEFAULTS, jobs=1, resume=True)
+
+
+def test_dask_missing_gives_install_hint(monkeypatch):
+    monkeypatch.setitem(sys.modules, "distributed", None)  # import distributed -> ImportError
+    with pytest.raises(InputError, match=r'pip install "vsini\[dask\]"'):
+        run_tasks(iter([]), WorkerSettings(), executor="dask", scheduler="tcp://127.0.0.1:8786")
 
 
 # --------------------------------------------------------------------------------------------- workers
@@ -410,3 +420,21 @@ def test_docs_cover_columns_and_adoption_rule():
         assert name in COLUMN_DESCRIPTIONS, name
     for heading in re.findall(r"\*\*(.+?)\*\*", vsini.compare.__doc__.split("Adoption rule", 1)[1]):
         assert f"**{heading}**" in docs, heading
+
+
+def test_run_demo_wiring(monkeypatch, tmp_path):
+    """run_demo surveys the demo list with the Halcyon spectrograph's profile and writes four formats."""
+    import vsini.survey
+
+    seen = {}
+
+    def fake(starlist, output, **kwargs):
+        seen.update(kwargs, starlist=Path(starlist), output=Path(output))
+        return "summary"
+
+    monkeypatch.setattr(vsini.survey, "run_survey", fake)
+    assert vsini.survey.run_demo(tmp_path, jobs=2) == "summary"
+    assert seen["starlist"] == demo_folder() / "starlist.csv" and seen["output"] == tmp_path / "results.ecsv"
+    assert [p.suffix for p in seen["also"]] == [".csv", ".fits", ".tex"] and seen["report_dir"] == tmp_path
+    assert seen["defaults"]["resolution"] == 60000.0 and seen["defaults"]["lsf"].source.endswith("lsf_example.ecsv")
+    assert seen["jobs"] == 2

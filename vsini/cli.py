@@ -333,6 +333,88 @@ def measure(
         raise typer.Exit(1)  # printed above; the exit code tells scripts that nothing was measured
 
 
+# ---------------------------------------------------------------------------------------------- survey
+
+
+@app.command()
+@_guarded
+def survey(
+    starlist: Path = typer.Argument(..., help="Star list, CSV or ECSV: columns star, spectrum (path relative to the "
+                                    "list), and optionally resolution, limb_darkening, lines, teff, logg, rv, "
+                                    "macroturbulence, period_days, radius_rsun."),
+    output: Path = typer.Option(..., "--output", "-o", help="Results table: .ecsv (default), .csv, .fits, .tex "
+                                "(AASTeX) or .txt. A journal (.journal.sqlite) is kept beside it."),
+    resolution: Optional[float] = typer.Option(None, help="Resolving power R for stars whose row gives none."),
+    lsf: Optional[Path] = typer.Option(None, help="Tabulated instrument profile (velocity km/s, response); replaces R."),
+    limb_darkening: str = typer.Option("0.6", help="Linear coefficient, or 'a,b' for the quadratic law."),
+    lines: Optional[str] = typer.Option(None, help="Line centres (Angstrom, air) separated by ';', or a line-set "
+                                        "name, for stars whose row gives none. Default: detect lines."),
+    method: str = typer.Option("both", help="fit, fourier or both."),
+    macroturbulence: str = typer.Option("free", help="'free', 'off' or a value in km/s, for stars whose row gives none."),
+    mc: int = typer.Option(0, help="Monte Carlo noise realisations per star for the uncertainties."),
+    seed: Optional[int] = typer.Option(None, help="Seed for the Monte Carlo realisations (per star, reproducible)."),
+    jobs: Optional[int] = typer.Option(None, "--jobs", "-j", help="Local worker processes (default: all cores)."),
+    executor: str = typer.Option("local", help="local (worker processes) or dask (an existing Dask cluster)."),
+    scheduler: Optional[str] = typer.Option(None, help="Dask scheduler address, e.g. tcp://10.0.0.5:8786."),
+    resume: bool = typer.Option(False, "--resume", help="Continue an interrupted run from its journal: finished stars "
+                                "are not measured again."),
+    report: Optional[Path] = typer.Option(None, help="Folder for the report: a figure per star, survey figures and "
+                                          "index.html."),
+    quiet: bool = typer.Option(False, "--quiet", "-q", help="Print only the final summary line."),
+):
+    """Measure every star of a star list with both methods and write one results table.
+
+    Stars are journaled as they finish, so an interrupted run loses nothing (--resume). A star that
+    cannot be measured gets a row with its flags and the reason; the rest go on. Exit code 0 when the
+    list was processed, 2 when the star list itself is unusable.
+    """
+    from .console import ConsoleProgress
+    from .errors import InputError
+    from .survey import run_survey
+
+    if method not in ("fit", "fourier", "both"):
+        raise InputError(f"--method must be fit, fourier or both, got {method!r}")
+    if executor not in ("local", "dask"):
+        raise InputError(f"--executor must be local or dask, got {executor!r}")
+    if executor == "dask" and not scheduler:
+        raise InputError("--executor dask needs --scheduler ADDRESS of a running Dask scheduler")
+    defaults = {
+        "resolution": resolution, "lsf": lsf, "limb_darkening": limb_darkening, "lines": lines, "method": method,
+        "macroturbulence": _macro_option(macroturbulence), "mc": mc, "seed": seed,
+    }
+    if defaults["macroturbulence"] is None:
+        defaults["macroturbulence"] = "off"
+    progress = ConsoleProgress(quiet=quiet)
+    summary = run_survey(starlist, output, defaults=defaults, jobs=jobs, executor=executor, scheduler=scheduler,
+                         resume=resume, report_dir=report, progress=progress)
+    typer.echo(summary.line())
+    typer.echo(f"results: {summary.results}")
+    if summary.report:
+        typer.echo(f"report: {summary.report}")
+
+
+@app.command()
+@_guarded
+def demo(
+    out: Path = typer.Option(Path("vsini-demo-output"), "--out", help="Folder for the results and the report."),
+    jobs: Optional[int] = typer.Option(None, "--jobs", "-j", help="Local worker processes (default: all cores)."),
+    resume: bool = typer.Option(False, "--resume", help="Continue an interrupted demo run."),
+):
+    """Run the survey and its report on the demo data: the fictional Lantern cluster.
+
+    About thirty stars observed with the (invented) Halcyon Echelle Spectrograph, R = 60 000: slow and
+    fast rotators, a macroturbulent giant, a differential rotator and one broken file.
+    """
+    from .console import ConsoleProgress
+    from .survey import run_demo
+
+    summary = run_demo(out, jobs=jobs, progress=ConsoleProgress(), resume=resume)
+    typer.echo(summary.line())
+    typer.echo(f"results: {summary.results}")
+    if summary.report:
+        typer.echo(f"report: {summary.report}  (open it in a browser)")
+
+
 def main():  # pragma: no cover - entry point
     """Run the command line (``python -m vsini``)."""
     app()

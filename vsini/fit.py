@@ -499,8 +499,8 @@ def _build_result(spectrum, model, res, sigma, scale, dropped, ld, resolution, m
     n_lines = model.n_features
     if n_lines < 3:
         flags.append("few_lines")
-    if dropped:
-        flags.append("lines_dropped")
+    if any(not d.reason.startswith("outside the spectrum") for d in dropped):  # a line list wider than the
+        flags.append("lines_dropped")  # spectrum is normal; only lines lost inside it deserve a flag
     snr = spectrum.snr_estimate()
     if np.isfinite(snr) and snr < 20:
         flags.append("low_snr")

@@ -434,18 +434,22 @@ def fourier_vsini(data, *, lines=None, resolution=None, limb_darkening=0.6, macr
     # ---- macroturbulence: calibrate q1 (and q2) with the joint kernel
     q1, q2, correction, ratio = q_rigid[0], q_rigid[1], 1.0, None
     sigma1_ref = msearch.zeros[0] if msearch is not None and msearch.zeros else None
+    have_zero = sigma1_ref is not None
     if sigma1_ref is None:
         ok1 = [searches[i].zeros[0] for i in detected if searches[i].zeros]
+        have_zero = bool(ok1)
         sigma1_ref = float(np.median(ok1)) if ok1 else (msearch.sigma_noise if msearch is not None else None)
     if macroturbulence and macro_kind == "rt" and sigma1_ref:
         got = _macro_q(sigma1_ref, macroturbulence, ld, radial_fraction)
+        # when the joint kernel has no zeros at all, macroturbulence is why none can be used: say so;
+        # otherwise the flag speaks of zeros that were used (with only a limit there is nothing shifted)
         if got is None:
-            flags.append("macro_shifts_zeros")
             ratio = math.inf
+            flags.append("macro_shifts_zeros")
         else:
             (q1, q2), ratio = got
             correction = q1 / q_rigid[0]
-            if ratio >= MACRO_RATIO_LIMIT:
+            if ratio >= MACRO_RATIO_LIMIT and have_zero:
                 flags.append("macro_shifts_zeros")
 
     # ---- lines

@@ -13,7 +13,6 @@ run can refuse to mix results measured with different options.
 from __future__ import annotations
 
 import json
-import math
 import sqlite3
 from contextlib import closing
 from datetime import datetime, timezone
@@ -136,6 +135,10 @@ class Journal:
         """Row indices of the stars already recorded (a set)."""
         return {i for (i,) in self._db.execute("SELECT idx FROM stars")}
 
+    def stars(self):
+        """``{row index: star name}`` of the stars already recorded."""
+        return dict(self._db.execute("SELECT idx, star FROM stars"))
+
     def __len__(self):
         return self._db.execute("SELECT COUNT(*) FROM stars").fetchone()[0]
 
@@ -182,7 +185,3 @@ class Journal:
     def __exit__(self, *exc):
         self.close()
 
-
-def is_nan(x):
-    """True for a float NaN (JSON ``NaN``)."""
-    return isinstance(x, float) and math.isnan(x)

@@ -570,8 +570,8 @@ def plot_survey_comparison(table, *, axes=None, title=None):
     Notes
     -----
     Top: stars with both values, with one-sigma error bars, on logarithmic axes; stars where one method
-    gives only an upper limit are drawn at the limit with an arrow pointing to lower values (open
-    symbols). Bottom: :math:`(v_\\mathrm{fit} - v_\\mathrm{F})/\\sqrt{\\sigma_\\mathrm{fit}^2 +
+    gives only an upper limit are drawn at the limit as open triangles pointing to lower values (down:
+    the Fourier value is below; left: the fitted value is below). Bottom: :math:`(v_\\mathrm{fit} - v_\\mathrm{F})/\\sqrt{\\sigma_\\mathrm{fit}^2 +
     \\sigma_\\mathrm{F}^2}` against the fitted value; the shaded band is +-3 sigma, the threshold of the
     ``methods_disagree`` flag.
     """
@@ -588,13 +588,13 @@ def plot_survey_comparison(table, *, axes=None, title=None):
         top.errorbar(fit[both], four[both], xerr=np.nan_to_num(fit_e[both]), yerr=np.nan_to_num(four_e[both]),
                      fmt="o", ms=3, lw=0.6, color=PALETTE[5], label=f"both methods ({both.sum()})")
         f_lim = np.isfinite(fit) & ~np.isfinite(four) & np.isfinite(four_l)
-        if f_lim.any():
-            top.errorbar(fit[f_lim], four_l[f_lim], yerr=0.25 * four_l[f_lim], uplims=True, fmt="s", ms=3,
-                         mfc="none", lw=0.6, color=PALETTE[6], label="Fourier: upper limit")
+        if f_lim.any():  # open triangle pointing down: the Fourier value is below it
+            top.plot(fit[f_lim], four_l[f_lim], "v", ms=4, mfc="none", mew=0.8, color=PALETTE[6],
+                     label=f"Fourier gives an upper limit ({f_lim.sum()})")
         l_fit = ~np.isfinite(fit) & np.isfinite(fit_l) & np.isfinite(four)
-        if l_fit.any():
-            top.errorbar(fit_l[l_fit], four[l_fit], xerr=0.25 * fit_l[l_fit], xuplims=True, fmt="D", ms=3,
-                         mfc="none", lw=0.6, color=PALETTE[1], label="fit: upper limit")
+        if l_fit.any():  # open triangle pointing left: the fitted value is below it
+            top.plot(fit_l[l_fit], four[l_fit], "<", ms=4, mfc="none", mew=0.8, color=PALETTE[1],
+                     label=f"fit gives an upper limit ({l_fit.sum()})")
         values = np.concatenate([fit[both], four[both], four_l[f_lim], fit[f_lim], fit_l[l_fit], four[l_fit]])
         values = values[np.isfinite(values) & (values > 0)]
         lo, hi = (values.min() / 1.6, values.max() * 1.6) if values.size else (1.0, 300.0)
@@ -658,10 +658,13 @@ def plot_vsini_distribution(table, *, ax=None, bins=None, title=None):
         limits = value[ok & limit]
         _, _, bars = ax.hist([measured, limits], bins=bins, stacked=True, linewidth=0.8,
                              label=[f"measured ({measured.size})", f"upper limits ({limits.size})"])
+        from matplotlib.ticker import MaxNLocator
+
         for patch in bars[0]:
             patch.set(facecolor=PALETTE[5], edgecolor=PALETTE[5])
         for patch in bars[1]:
-            patch.set(facecolor="none", edgecolor=PALETTE[6], hatch="////")
+            patch.set(facecolor="none", edgecolor=PALETTE[6], hatch="////", visible=patch.get_height() > 0)
+        ax.yaxis.set_major_locator(MaxNLocator(integer=True))
         ax.set_xscale("log")
         ax.set_xlabel("adopted v sin i (km s$^{-1}$)")
         ax.set_ylabel("stars")

@@ -296,6 +296,9 @@ def _index_html(table, figures, figure_dir, title, summary, files, folder):
     def either(v, e, lim, k):
         return format_value(v[k], e[k]) if np.isfinite(v[k]) else format_value(lim[k], limit=True)
 
+    def number(text):  # a value cell: "12.3 ± 0.4", "&lt;1.8"
+        return escape(text).replace(" +- ", " &plusmn; ")
+
     used_flags = sorted({f for fl in text["flags"] for f in fl.split()})
     out = [
         "<!DOCTYPE html>", '<html lang="en">', "<head>", '<meta charset="utf-8">',
@@ -345,12 +348,12 @@ def _index_html(table, figures, figure_dir, title, summary, files, folder):
             fig, star = "", escape(text["star"][k])
         cells = [
             f'<td class="n">{k + 1}</td>', f"<td>{star}</td>",
-            f'<td class="n">{escape(format_value(ad[k], ad_e[k], limit=bool(is_lim[k])))}</td>',
+            f'<td class="n">{number(format_value(ad[k], ad_e[k], limit=bool(is_lim[k])))}</td>',
             f"<td>{escape(text['adopted_method'][k])}</td>",
-            f'<td class="n">{escape(either(fit, fit_e, fit_l, k))}</td>',
-            f'<td class="n">{escape(either(four, four_e, four_l, k))}</td>',
+            f'<td class="n">{number(either(fit, fit_e, fit_l, k))}</td>',
+            f'<td class="n">{number(either(four, four_e, four_l, k))}</td>',
             f'<td class="n">{"" if not np.isfinite(diff[k]) else f"{diff[k]:+.1f}"}</td>',
-            f'<td class="n">{escape(format_value(q[k], q_e[k]))}</td>',
+            f'<td class="n">{number(format_value(q[k], q_e[k]))}</td>',
             f'<td class="n">{"" if not np.isfinite(n_lines[k]) else int(n_lines[k])}</td>',
             f'<td class="n">{"" if not np.isfinite(snr[k]) else f"{snr[k]:.0f}"}</td>',
             f"<td>{flags}</td>", f"<td>{escape(text['error'][k])}</td>", f"<td>{fig}</td>",

@@ -78,17 +78,17 @@ class Progress(Protocol):
 class NullProgress:
     """A :class:`Progress` that reports nothing (the default below the command line)."""
 
-    def start(self, total, done=0):  # noqa: D102 - see Progress
-        pass
+    def start(self, total, done=0):
+        """Nothing."""
 
-    def advance(self, star, status, detail=""):  # noqa: D102
-        pass
+    def advance(self, star, status, detail=""):
+        """Nothing."""
 
-    def stage(self, text):  # noqa: D102
-        pass
+    def stage(self, text):
+        """Nothing."""
 
-    def finish(self, summary):  # noqa: D102
-        pass
+    def finish(self, summary):
+        """Nothing."""
 
 
 @dataclass(frozen=True)
@@ -267,11 +267,16 @@ def run_survey(starlist_path, output_path, *, defaults, jobs=None, executor="loc
 
     jpath = journal_path(output_path)
     meta = {"options": record, "star_list": str(starlist_path), "vsini_version": __version__}
-    report_dir = Path(report_dir) if report_dir is not None else None
+    report_dir = Path(report_dir).resolve() if report_dir is not None else None  # workers may run elsewhere
     settings = WorkerSettings(lsf=lsf, figure_dir=str(report_dir / _FIGURE_DIR) if report_dir else "")
     with Journal.open(jpath, meta=meta, resume=resume) as journal:
         done = journal.finished()
         total = len(starlist)
+        for index, star in journal.stars().items():
+            if index < total and star != starlist.star_name(index):
+                raise InputError(f"{jpath}: cannot resume: row {index + 1} of the journal is star {star!r} but the "
+                                 f"star list has {starlist.star_name(index)!r}; resume with the same star list "
+                                 "(rows may only be appended) or start again without resume")
         resumed = sum(1 for i in done if i < total)
         progress.start(total, resumed)
         tasks = (starlist.task(i, options, seed) for i in range(total) if i not in done)
