@@ -3,3 +3,5 @@
 Installed as the package data ``vsini.demo_data`` so that ``vsini demo`` finds it without a source tree;
 ``demo/make_demo.py`` regenerates it.
 """
+
+__all__: list[str] = []

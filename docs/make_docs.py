@@ -5,7 +5,6 @@ Run: ``python docs/make_docs.py``. A test checks the committed pages are up to d
 
 from pathlib import Path
 
-
 HERE = Path(__file__).resolve().parent
 
 

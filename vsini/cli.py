@@ -386,8 +386,7 @@ def survey(
         defaults["macroturbulence"] = "off"
     progress = ConsoleProgress(quiet=quiet)
     summary = run_survey(starlist, output, defaults=defaults, jobs=jobs, executor=executor, scheduler=scheduler,
-                         resume=resume, report_dir=report, progress=progress)
-    typer.echo(summary.line())
+                         resume=resume, report_dir=report, progress=progress)  # the summary line goes to stderr
     typer.echo(f"results: {summary.results}")
     if summary.report:
         typer.echo(f"report: {summary.report}")
@@ -408,8 +407,7 @@ def demo(
     from .console import ConsoleProgress
     from .survey import run_demo
 
-    summary = run_demo(out, jobs=jobs, progress=ConsoleProgress(), resume=resume)
-    typer.echo(summary.line())
+    summary = run_demo(out, jobs=jobs, progress=ConsoleProgress(), resume=resume)  # summary line on stderr
     typer.echo(f"results: {summary.results}")
     if summary.report:
         typer.echo(f"report: {summary.report}  (open it in a browser)")

@@ -86,6 +86,17 @@ class TabulatedLSF:
         :math:`c_j` the jumps of the slope, and its :math:`\\sigma \\to 0` limit 1.
         """
         s = np.asarray(sigma, dtype=float)
+        key = (s.shape, s.tobytes())
+        cache = self.__dict__.setdefault("_cache", {})  # fits evaluate the same frequencies many times
+        if key in cache:
+            return cache[key]
+        out = self._transform(s)
+        if len(cache) >= 8:
+            cache.pop(next(iter(cache)))
+        cache[key] = out
+        return out
+
+    def _transform(self, s):
         v, r = self.velocity, self.response
         slope = np.diff(r) / np.diff(v)
         jumps = np.diff(np.concatenate(([0.0], slope, [0.0])))  # slope changes at each knot

@@ -130,8 +130,8 @@ class SurveySummary:
 
     def line(self):
         """The one-line summary: ``30 stars: 24 measured, 5 upper limits, 1 failed; 9 flagged``."""
-        text = (f"{self.total} stars: {self.measured} measured, {self.limits} upper limits, {self.failed} failed; "
-                f"{self.flagged} flagged")
+        text = (f"{self.total} star{'s' if self.total != 1 else ''}: {self.measured} measured, {self.limits} upper "
+                f"limit{'s' if self.limits != 1 else ''}, {self.failed} failed; {self.flagged} flagged")
         if self.resumed:
             text += f" ({self.resumed} from the journal of an earlier run)"
         return text
