@@ -247,9 +247,9 @@ def test_unlisted_blend_is_dropped():
 
 
 def test_free_intrinsic_width_and_tabulated_lsf():
-    from importlib.resources import files
+    from vsini.datafiles import data_path
 
-    lsf = load_lsf(files("vsini.data").joinpath("lsf_example.ecsv"))
+    lsf = load_lsf(data_path("lsf_example.ecsv"))
     spec, centres = star(25.0, 60000, snr=500, rng=8, b=3.0)
     spec = simulate_spectrum([(c, d) for c, d in zip(centres, DEPTHS, strict=False)], wave_range=(5400.0, spec.wavelength[-1]),
                              step=5500.0 / 180000, vsini=25.0, lsf=lsf, snr=500, rng=8, rv=7.0, intrinsic_width=3.0)

@@ -77,11 +77,11 @@ def test_quadratic_table_interpolation_matches_direct_roots():
 
 def test_zero_table_regenerates_identically():
     """The shipped kernels/q1_quadratic.ecsv is what build_zero_table() makes (STYLE habit 16)."""
-    from importlib.resources import files
-
     from astropy.table import Table
 
-    shipped = Table.read(str(files("vsini.data").joinpath(Z.ZERO_TABLE_NAME)), format="ascii.ecsv")
+    from vsini.datafiles import data_path
+
+    shipped = Table.read(str(data_path(Z.ZERO_TABLE_NAME)), format="ascii.ecsv")
     fresh = Z.build_zero_table()
     assert len(shipped) == len(fresh)
     for col in ("a", "b", "q1", "q2"):

@@ -286,11 +286,10 @@ def test_tabulated_lsf_transform_matches_gaussian():
 
 
 def test_example_lsf_ships_with_the_package():
-    import importlib.resources as resources
-
+    from vsini.datafiles import data_path
     from vsini.model import load_lsf
 
-    lsf = load_lsf(resources.files("vsini.data") / "lsf_example.ecsv")
+    lsf = load_lsf(data_path("lsf_example.ecsv"))
     assert lsf.transform(np.array([0.0]))[0] == pytest.approx(1.0)
 
 

@@ -75,9 +75,9 @@ class DroppedLine:
 
 
 def _data_files():
-    from importlib.resources import files
+    from .datafiles import data_folder
 
-    return files("vsini.data")
+    return data_folder()
 
 
 def available_line_sets():

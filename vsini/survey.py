@@ -524,13 +524,14 @@ def run_demo(out_dir, *, jobs=None, progress=None, executor="local", resume=Fals
     -------
     SurveySummary
     """
-    from importlib.resources import as_file, files
+    from importlib.resources import as_file
 
+    from .datafiles import data_path
     from .model import load_lsf
 
     folder = demo_folder()
     out_dir = Path(out_dir)
-    with as_file(files("vsini.data") / "lsf_example.ecsv") as path:  # the Halcyon spectrograph's profile
+    with as_file(data_path("lsf_example.ecsv")) as path:  # the Halcyon spectrograph's profile
         lsf = load_lsf(path)
     options = dict(DEMO_OPTIONS, lsf=lsf)
     return run_survey(folder / "starlist.csv", out_dir / "results.ecsv", defaults=options, jobs=jobs,

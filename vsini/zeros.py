@@ -176,9 +176,9 @@ def write_zero_table(path=None):
 
     Returns the path written. Run as ``python -m vsini.zeros`` from a source checkout.
     """
-    from importlib.resources import files
+    from .datafiles import data_path
 
-    target = files("vsini.data").joinpath(ZERO_TABLE_NAME) if path is None else path
+    target = data_path(ZERO_TABLE_NAME) if path is None else path
     build_zero_table().write(str(target), format="ascii.ecsv", overwrite=True)
     load_zero_table.cache_clear()
     _zeros_cached.cache_clear()
@@ -196,12 +196,12 @@ def load_zero_table():
     spline_q1, spline_q2 : scipy.interpolate.RectBivariateSpline
         Bicubic interpolants of :math:`q_1(a, b)` and :math:`q_2(a, b)`.
     """
-    from importlib.resources import files
-
     from astropy.table import Table
     from scipy.interpolate import RectBivariateSpline
 
-    path = files("vsini.data").joinpath(ZERO_TABLE_NAME)
+    from .datafiles import data_path
+
+    path = data_path(ZERO_TABLE_NAME)
     try:
         t = Table.read(str(path), format="ascii.ecsv")
     except FileNotFoundError as e:
