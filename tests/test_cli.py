@@ -54,6 +54,16 @@ def test_measure_prints_and_json_has_the_survey_columns(spectrum_file, tmp_path)
     assert (tmp_path / "m.png").stat().st_size > 1000
 
 
+def test_measure_draws_the_chi2_map(spectrum_file, tmp_path):
+    res = run("measure", spectrum_file, "--resolution", "60000", "--method", "fit", "--chi2-map", tmp_path / "c.png",
+              "--lines", "5302.3;5324.2;5371.5")
+    assert res.exit_code == 0, res.output
+    assert (tmp_path / "c.png").stat().st_size > 1000
+    res = run("measure", spectrum_file, "--resolution", "60000", "--macroturbulence", "off", "--chi2-map",
+              tmp_path / "d.png", "--lines", "5302.3")
+    assert res.exit_code == 2 and "--chi2-map needs" in res.output
+
+
 def test_measure_method_fit_only(spectrum_file):
     res = run("measure", spectrum_file, "--resolution", "60000", "--method", "fit", "--json",
               "--lines", "5302.3;5324.2;5371.5")

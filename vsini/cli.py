@@ -295,6 +295,10 @@ def measure(
     seed: Optional[int] = typer.Option(None, help="Seed for the Monte Carlo realisations."),
     as_json: bool = typer.Option(False, "--json", help="Print one JSON object with the result columns."),
     plot: Optional[Path] = typer.Option(None, help="Figure of the line fits and the Fourier amplitudes (.pdf, .png)."),
+    chi2_map: Optional[Path] = typer.Option(
+        None, "--chi2-map", help="Figure of chi-square over (v sin i, macroturbulence) with 1-3 sigma contours, to "
+        "see how the two trade off (needs the fit with macroturbulence free)."
+    ),
 ):
     """Measure v sin i of one star by profile fitting and by the Fourier first zero.
 
@@ -329,6 +333,17 @@ def measure(
         save_figure(fig, plot)
         if not as_json:
             typer.echo(f"wrote {plot}")
+    if chi2_map:
+        if m.fit is None or m.fit.macroturbulence_mode != "free":
+            raise InputError("--chi2-map needs a profile fit with --macroturbulence free")
+        _use_agg()
+        from .fit import chi2_map as make_chi2_map
+        from .plots import plot_chi2_map, save_figure
+
+        ax = plot_chi2_map(make_chi2_map(m.fit))
+        save_figure(ax.figure, chi2_map)
+        if not as_json:
+            typer.echo(f"wrote {chi2_map}")
     if m.row["adopted_method"] == "none":
         raise typer.Exit(1)  # printed above; the exit code tells scripts that nothing was measured
 
