@@ -36,13 +36,20 @@ def commands_page():
 
 
 def flags_page():
-    """Markdown table of every result flag."""
+    """Markdown tables of every flag: measurement flags, then the inclination and deprojection flags."""
+    from vsini.deprojection import DEPROJECTION_FLAGS
     from vsini.flags import FLAGS
+    from vsini.inclination import INCLINATION_FLAGS
 
-    out = ["# Result flags", "", "Generated from `vsini.flags.FLAGS` by `python docs/make_docs.py`; do not edit by hand.", "",
-           "| flag | meaning |", "|---|---|"]
-    out += [f"| `{k}` | {v} |" for k, v in FLAGS.items()]
-    return "\n".join(out) + "\n"
+    out = ["# Result flags", "", "Generated from `vsini.flags.FLAGS`, `vsini.inclination.INCLINATION_FLAGS` and "
+           "`vsini.deprojection.DEPROJECTION_FLAGS` by `python docs/make_docs.py`; do not edit by hand.", ""]
+    for title, table in (("Measurements (results tables, `vsini measure`, `vsini survey`)", FLAGS),
+                         ("Inclination (`vsini inclination infer`)", INCLINATION_FLAGS),
+                         ("Deprojection (`vsini inclination deproject`)", DEPROJECTION_FLAGS)):
+        out += [f"## {title}", "", "| flag | meaning |", "|---|---|"]
+        out += [f"| `{k}` | {v} |" for k, v in table.items()]
+        out.append("")
+    return "\n".join(out)
 
 
 if __name__ == "__main__":
