@@ -146,6 +146,26 @@ def _as_window(item, i):
     return FourierWindow(vel, dep, getattr(item, "noise", None), getattr(item, "centre_kms", None),
                          str(getattr(item, "label", f"window {i}")))
 
+def _window_continuum(u, flux, level, *, edge=0.15, tolerance=0.05):
+    """Continuum of one window: ``level`` when both window edges agree with it, else a straight line.
+
+    The outer ``edge`` fraction of the window on each side is taken as continuum (the window is about
+    three times the line's half width). When the medians of both edges lie within ``tolerance`` of
+    ``level`` (a normalised spectrum), the continuum stays exactly ``level`` so no noise is added;
+    otherwise (a spectrum that is not normalised, or tilted) the straight line through the two edge
+    medians is used (common practice).
+    """
+    n = flux.size
+    k = max(3, int(edge * n))
+    left, right = np.nanmedian(flux[:k]), np.nanmedian(flux[-k:])
+    if not (np.isfinite(left) and np.isfinite(right)) or (
+        abs(left / level - 1.0) < tolerance and abs(right / level - 1.0) < tolerance
+    ):
+        return np.full(n, float(level))
+    ul, ur = np.nanmedian(u[:k]), np.nanmedian(u[-k:])
+    return left + (right - left) * (u - ul) / (ur - ul)
+
+
 def spectrum_windows(spectrum, lines=None, *, rv=None, half_width_kms=None, resolution=None):
     """Cut one Fourier window around each isolated line of a spectrum.
 
@@ -207,8 +227,9 @@ def spectrum_windows(spectrum, lines=None, *, rv=None, half_width_kms=None, reso
         if len(w.lines) > 1:
             skipped += [(ln.label, "blended: its window overlaps another listed line's") for ln in w.lines]
             continue
-        dep = np.where(w.good, 1.0 - w.flux / cont, np.nan)
-        noise = (w.flux_err / cont) if w.flux_err is not None else np.full(w.flux.shape, flat_noise)
+        local = _window_continuum(w.u, np.where(w.good, w.flux, np.nan), cont)
+        dep = np.where(w.good, 1.0 - w.flux / local, np.nan)
+        noise = (w.flux_err / local) if w.flux_err is not None else np.full(w.flux.shape, flat_noise * cont / local)
         try:
             out.append(FourierWindow(w.u - u_rv, dep, np.where(w.good, noise, np.nan), 0.0, w.lines[0].label))
         except InputError as e:
