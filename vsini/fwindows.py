@@ -30,11 +30,11 @@ from .lines import (
     extract_windows,
     stack_profile,
 )
+from .spectrum import der_noise
 
 __all__ = ["FourierWindow", "spectrum_windows"]
 
 _MIN_PIXELS = 16
-_MAD_TO_SIGMA = 1.482602  # median absolute deviation -> standard deviation, normal noise (common practice)
 
 
 def _kms(value):
@@ -42,18 +42,6 @@ def _kms(value):
     if hasattr(value, "unit"):
         return value.to_value("km/s")
     return value
-
-
-def _scatter_noise(d):
-    """Per-pixel noise from the second difference of pixels two apart (DER_SNR, Stoehr et al. 2008 [1]_).
-
-    :math:`1.482602/\\sqrt 6\\;\\mathrm{median}|2d_i - d_{i-2} - d_{i+2}|`: smooth line shapes cancel, so it
-    measures the pixel-to-pixel (continuum) scatter; unresolved structure counts as noise (conservative).
-    """
-    d = d[np.isfinite(d)]
-    if d.size < 5:
-        return 0.0
-    return float(_MAD_TO_SIGMA / np.sqrt(6.0) * np.median(np.abs(2.0 * d[2:-2] - d[:-4] - d[4:])))
 
 
 @dataclass(frozen=True, eq=False)
@@ -69,7 +57,7 @@ class FourierWindow:
         :math:`1 - F/F_c`; NaN marks a bad pixel (filled by linear interpolation, at most 25 %).
     noise : float or (N,) array_like, optional
         One-sigma noise of the depression per pixel. None: estimated from the pixel-to-pixel scatter of
-        the window (:func:`_scatter_noise`), recorded in :attr:`noise_estimated`.
+        the window (:func:`vsini.spectrum.der_noise`, Stoehr et al. 2008), recorded in :attr:`noise_estimated`.
     centre_kms : float, optional
         Line centre; default the centroid of the depression over the untapered part of the window.
     label : str
@@ -101,7 +89,7 @@ class FourierWindow:
                              "resample onto a uniform velocity grid first")
         estimated = self.noise is None
         if estimated:
-            n = np.full(v.shape, _scatter_noise(d))
+            n = np.full(v.shape, der_noise(d))
         else:
             n = np.array(np.broadcast_to(np.asarray(self.noise, dtype=float), v.shape))
             if np.any(n[np.isfinite(n)] < 0):

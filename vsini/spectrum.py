@@ -18,7 +18,8 @@ import numpy as np
 from .errors import InputError, SpectrumFileError
 from .grid import C_KMS, log_wavelength_grid, resample_flux_conserving
 
-__all__ = ["MIN_PIXELS", "Spectrum", "der_snr"]
+__all__ = [
+    "MIN_PIXELS", "Spectrum", "der_noise", "der_snr"]
 
 #: Fewest pixels a spectrum may have (in total, and unmasked).
 MIN_PIXELS = 10
@@ -26,6 +27,19 @@ MIN_PIXELS = 10
 # Normal-distribution factor turning a median absolute deviation into a standard deviation,
 # 1/Phi^-1(3/4) = 1.482602 (common practice).
 _MAD_TO_SIGMA = 1.482602
+
+
+def der_noise(flux):
+    """Per-pixel noise (one sigma) from the pixel-to-pixel scatter, the noise part of :func:`der_snr`.
+
+    Returns 0.0 when fewer than five finite pixels are given. See :func:`der_snr` for the formula
+    and its source (Stoehr et al. 2008).
+    """
+    f = np.asarray(flux, dtype=float)
+    f = f[np.isfinite(f)]
+    if f.size < 5:
+        return 0.0
+    return float(_MAD_TO_SIGMA / np.sqrt(6.0) * np.median(np.abs(2.0 * f[2:-2] - f[:-4] - f[4:])))
 
 
 def der_snr(flux):
@@ -72,7 +86,7 @@ def der_snr(flux):
     f = f[np.isfinite(f)]
     if f.size < 5:
         return float("nan")
-    noise = _MAD_TO_SIGMA / np.sqrt(6.0) * np.median(np.abs(2.0 * f[2:-2] - f[:-4] - f[4:]))
+    noise = der_noise(f)
     signal = np.median(f)
     return float(np.inf) if noise == 0 else float(signal / noise)
 
