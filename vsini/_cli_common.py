@@ -16,7 +16,7 @@ import typer
 
 from .errors import VsiniError
 
-__all__ = ["fail", "guarded", "json_safe", "print_json", "use_agg"]
+__all__ = ["fail", "guarded", "json_safe", "print_json", "use_agg", "write_figure"]
 
 
 def fail(message, code=2):
@@ -70,3 +70,21 @@ def json_safe(obj):
 def print_json(obj):
     """Print ``obj`` as indented JSON (NaN written as null)."""
     typer.echo(json.dumps(json_safe(obj), indent=2, allow_nan=False))
+
+
+def write_figure(draw, path, *, quiet=False):
+    """Draw with ``draw()`` (returning a Figure, an Axes or a sequence of Axes), save to ``path``, say so.
+
+    The figure is written headless (Agg) by :func:`vsini.plots.save_figure`; ``quiet`` suppresses the
+    ``wrote PATH`` line (e.g. when the standard output carries JSON).
+    """
+    import numpy as np
+
+    use_agg()
+    from .plots import save_figure
+
+    drawn = draw()
+    fig = drawn if hasattr(drawn, "savefig") else np.ravel(np.asarray(drawn, dtype=object))[0].figure
+    save_figure(fig, path)
+    if not quiet:
+        typer.echo(f"wrote {path}")

@@ -15,7 +15,7 @@ import typer
 
 from ._cli_common import guarded as _guarded
 from ._cli_common import print_json as _print_json
-from ._cli_common import use_agg as _use_agg
+from ._cli_common import write_figure
 from .cli_inclination import inclination_app
 
 __all__ = ["app", "main"]
@@ -116,12 +116,9 @@ def simulate(
     write_spectrum(spec, output)
     typer.echo(f"wrote {output} ({spec.n_pixels} pixels, v sin i = {vsini:g} km/s)")
     if plot:
-        _use_agg()
-        from .plots import plot_spectrum, save_figure
+        from .plots import plot_spectrum
 
-        ax = plot_spectrum(spec, title=f"{name}: v sin i = {vsini:g} km/s")
-        save_figure(ax.figure, plot)
-        typer.echo(f"wrote {plot}")
+        write_figure(lambda: plot_spectrum(spec, title=f"{name}: v sin i = {vsini:g} km/s"), plot)
 
 
 # ---------------------------------------------------------------------------------------------- kernel
@@ -200,12 +197,10 @@ def kernel(
     if zeros:
         typer.echo("rotation zeros (s/km): " + ", ".join(f"{z:.5f}" for z in zeros))
     if plot:
-        _use_agg()
-        from .plots import plot_kernel, save_figure
+        from .plots import plot_kernel
 
-        axes = plot_kernel(v, k, sigma, amp, zeros=zeros[:2], title=f"v sin i = {vsini:g} km/s, {b.limb_darkening.label}")
-        save_figure(axes[0].figure, plot)
-        typer.echo(f"wrote {plot}")
+        title = f"v sin i = {vsini:g} km/s, {b.limb_darkening.label}"
+        write_figure(lambda: plot_kernel(v, k, sigma, amp, zeros=zeros[:2], title=title), plot)
 
 
 # ---------------------------------------------------------------------------------------------- measure
@@ -326,24 +321,16 @@ def measure(
     else:
         _print_measurement(m, spectrum.name)
     if plot:
-        _use_agg()
-        from .plots import save_figure, star_figure
+        from .plots import star_figure
 
-        fig = star_figure(m, title=m.row["star"])
-        save_figure(fig, plot)
-        if not as_json:
-            typer.echo(f"wrote {plot}")
+        write_figure(lambda: star_figure(m, title=m.row["star"]), plot, quiet=as_json)
     if chi2_map:
         if m.fit is None or m.fit.macroturbulence_mode != "free":
             raise InputError("--chi2-map needs a profile fit with --macroturbulence free")
-        _use_agg()
         from .fit import chi2_map as make_chi2_map
-        from .plots import plot_chi2_map, save_figure
+        from .plots import plot_chi2_map
 
-        ax = plot_chi2_map(make_chi2_map(m.fit))
-        save_figure(ax.figure, chi2_map)
-        if not as_json:
-            typer.echo(f"wrote {chi2_map}")
+        write_figure(lambda: plot_chi2_map(make_chi2_map(m.fit)), chi2_map, quiet=as_json)
     if m.row["adopted_method"] == "none":
         raise typer.Exit(1)  # printed above; the exit code tells scripts that nothing was measured
 

@@ -15,7 +15,7 @@ from typing import Optional
 
 import typer
 
-from ._cli_common import guarded, print_json, use_agg
+from ._cli_common import guarded, print_json, write_figure
 from .errors import InputError, SpectrumFileError
 
 __all__ = ["inclination_app"]
@@ -157,13 +157,9 @@ def sensitivity(
         if not as_json:
             typer.echo(f"wrote {output}")
     if plot:
-        use_agg()
-        from .plots import plot_sensitivity, save_figure
+        from .plots import plot_sensitivity
 
-        axes = plot_sensitivity(result)
-        save_figure(axes[0].figure, plot)
-        if not as_json:
-            typer.echo(f"wrote {plot}")
+        write_figure(lambda: plot_sensitivity(result), plot, quiet=as_json)
 
 
 def _print_sensitivity(result, records):
@@ -272,13 +268,9 @@ def infer(
     else:
         _print_posterior(post)
     if plot:
-        use_agg()
-        from .plots import plot_inclination_posterior, save_figure
+        from .plots import plot_inclination_posterior
 
-        axes = plot_inclination_posterior(post)
-        save_figure(axes[0].figure, plot)
-        if not as_json:
-            typer.echo(f"wrote {plot}")
+        write_figure(lambda: plot_inclination_posterior(post), plot, quiet=as_json)
 
 
 def _print_posterior(post):
@@ -410,10 +402,6 @@ def deproject(
         if not as_json:
             typer.echo(f"wrote {output}")
     if plot:
-        use_agg()
-        from .plots import plot_deprojection, save_figure
+        from .plots import plot_deprojection
 
-        axes = plot_deprojection(dep)
-        save_figure(axes[0].figure, plot)
-        if not as_json:
-            typer.echo(f"wrote {plot}")
+        write_figure(lambda: plot_deprojection(dep), plot, quiet=as_json)
