@@ -223,7 +223,7 @@ def test_peak_finder_matches_scipy_find_peaks():
     from scipy.ndimage import gaussian_filter1d
     from scipy.signal import find_peaks
 
-    from vsini.lines import _maxima
+    from vsini.detect import _maxima
 
     y = gaussian_filter1d(np.random.default_rng(3).standard_normal(3000), 4.0)
     ref, props = find_peaks(y, height=0.05, prominence=0.08, width=0, rel_height=0.5)

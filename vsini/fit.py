@@ -25,6 +25,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from . import kernels as K
+from .detect import _FWHM_PER_B
 from .errors import FitError, InputError
 from .fitlimits import (
     DELTA_CHI2_2PARAM,
@@ -44,7 +45,6 @@ from .grid import C_KMS
 from .limbdark import LimbDarkening, as_limb_darkening
 from .linemodel import JointModel
 from .lines import (
-    _FWHM_PER_B,
     DroppedLine,
     Line,
     _emission_excesses,
