@@ -452,3 +452,22 @@ def test_joint_model_rejects_bad_arguments(macro_star):
                       rt_mode="sum")
     with pytest.raises(InputError, match="unknown parameter 'zz'"):
         r.model.jacobian(dict(r.params), ["zz"])
+
+
+def test_noiseless_spectrum_is_measured_by_both_methods():
+    """A synthetic spectrum without noise (as an independent forward model may deliver it): lines are
+    detected, both methods measure, and the missing line list is reported as ``no_lines``, not as a
+    failed minimisation. Truth: the simulator's input (v sin i 22, zeta_RT 4 km/s)."""
+    from vsini.compare import measure_star
+    from vsini.detect import detect_lines
+
+    spec = simulate_spectrum("5250.2:0.5;5302.3:0.6;5324.2:0.6;5365.4:0.5;5371.5:0.7;5383.4:0.6",
+                             wave_range=(5240, 5390), step=0.03, vsini=22, resolution=60000, macroturbulence=4,
+                             snr=None)
+    assert len(detect_lines(spec, resolution=60000)) == 6
+    m = measure_star(spec, resolution=60000)
+    assert m.row["vsini_fit"] == pytest.approx(22.0, rel=2e-3)
+    assert m.row["vsini_fourier"] == pytest.approx(22.0, rel=2e-2)
+    flat = Spectrum(spec.wavelength, np.ones_like(spec.flux))
+    row = measure_star(flat, resolution=60000).row
+    assert "no_lines" in row["flags"].split() and "fit_failed" not in row["flags"].split()

@@ -235,7 +235,8 @@ def measure_star(
             flags += list(fit.flags)
         except VsiniError as e:
             fit_error = str(e)
-            flags.append("fit_failed")
+            # "no usable line" is not a failure of the minimiser: say which it was
+            flags += [f for f in getattr(e, "flags", ()) if f == "no_lines"] or ["fit_failed"]
     if method in ("both", "fourier"):
         macro_value = None
         if fit is not None and math.isfinite(fit.macroturbulence_kms):

@@ -20,6 +20,11 @@ __all__ = ["detect_lines"]
 
 _FWHM_PER_B = 2.0 * math.sqrt(math.log(2.0))  # FWHM of exp(-(v/b)^2) is 2 sqrt(ln 2) b
 
+#: Smallest relative noise the detector assumes (S/N 10 000 per pixel). A noiseless (synthetic) spectrum
+#: has no pixel-to-pixel scatter; below this level rounding in the file and the interpolation of the
+#: model dominate anyway (common practice), and without a floor no line would stand "above the noise".
+NOISE_FLOOR = 1e-4
+
 
 def _continuum_level(flux):
     """A rough continuum level: the 90th percentile of the flux (common practice; for starting values only)."""
@@ -99,7 +104,7 @@ def _confirm(depression, p, width_pix, smoothed, kernel_norm):
     n = depression.size
     reach = int(math.ceil(15.0 * width_pix))
     lo, hi = max(p - reach, 0), min(p + reach + 1, n)
-    sigma = der_noise(depression[lo:hi])  # DER_SNR (Stoehr et al. 2008); 0 if too few pixels
+    sigma = max(der_noise(depression[lo:hi]), NOISE_FLOOR)  # DER_SNR (Stoehr et al. 2008), floored
     idx = np.arange(lo, hi)
     ring = (np.abs(idx - p) > 1.5 * width_pix) & (np.abs(idx - p) < 4.0 * width_pix)
     ring_vals = depression[lo:hi][ring]
@@ -178,7 +183,8 @@ def detect_lines(spectrum, *, resolution=None, min_snr=6.0, min_significance=5.0
     cont = _running_continuum(flux_s, max(int(continuum_kms / step), 20))
     smooth = np.where(np.isfinite(flux_s), 1.0 - flux_s / cont, 0.0)
     snr = spectrum.snr_estimate()
-    noise = (1.0 / snr if np.isfinite(snr) and snr > 0 else 0.01) / math.sqrt(2.0 * math.sqrt(math.pi) * s_pix)
+    rel = 1.0 / snr if snr > 0 else 0.01  # no estimate (a spectrum of noise only): assume S/N 100
+    noise = max(rel, NOISE_FLOOR) / math.sqrt(2.0 * math.sqrt(math.pi) * s_pix)
     peaks, depth, fwhm = _maxima(smooth, min_snr * noise, min_snr * noise)  # fwhm in pixels
     if peaks.size == 0:
         return ()

@@ -17,7 +17,7 @@ FLAGS: dict[str, str] = {
     "low_snr": "signal-to-noise ratio below 20 per pixel: the result is less reliable",
     "few_lines": "fewer than 3 lines were used",
     "lines_dropped": "some lines inside the spectrum were left out (in a gap, not detected, not significant, emission or blended)",
-    "no_lines": "no usable line: nothing was measured",
+    "no_lines": "profile fit: no usable line (none in range, none detected, or all dropped with a reason): the fit gave no value",
     "fit_failed": "the minimiser did not converge or could not estimate uncertainties",
     "at_bound": "a fitted parameter ended at a limit of its allowed range (the top for v sin i and macroturbulence; either end for the radial velocity, the intrinsic width and a detected line's centre): its error is unreliable. Zero v sin i or macroturbulence is not flagged: it is reported as an upper limit",
     "macro_degenerate": "v sin i and macroturbulence are strongly correlated (|r| > 0.9): their split is unreliable",

@@ -19,6 +19,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from .detect import NOISE_FLOOR
 from .errors import InputError
 from .grid import C_KMS
 from .lines import (
@@ -206,7 +207,8 @@ def spectrum_windows(spectrum, lines=None, *, rv=None, half_width_kms=None, reso
     wins, dropped = extract_windows(spectrum, found, rv=rv, half_width=float(half_width_kms))
     skipped = [(d.line.label, d.reason) for d in dropped]
     snr = spectrum.snr_estimate()
-    flat_noise = 1.0 / snr if np.isfinite(snr) and snr > 0 else math.nan
+    # a noiseless (synthetic) spectrum: the detector's floor, S/N 10 000 (vsini.detect.NOISE_FLOOR)
+    flat_noise = max(1.0 / snr, NOISE_FLOOR) if snr > 0 else math.nan
     level = _continuum_level(np.where(spectrum.good, spectrum.flux, np.nan))  # 90th percentile
     cont = 1.0 if 0.8 < level < 1.2 else level  # a normalised spectrum keeps its continuum at 1
     u_rv = C_KMS * math.log1p(rv / C_KMS)
