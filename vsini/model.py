@@ -264,7 +264,7 @@ class Broadening:
                 with np.errstate(divide="ignore", over="ignore"):
                     envelope = np.abs(out) * rt * np.minimum(1.0, 3.0 * u**-1.5)
                 live = envelope > 1e-13
-                joint = rt * K.rotation_transform(s, self.vsini, self.limb_darkening)
+                joint = np.asarray(rt * K.rotation_transform(s, self.vsini, self.limb_darkening))  # 0-d safe
                 joint[live] = K.rotation_rt_transform(
                     s[live], self.vsini, self.macroturbulence, self.limb_darkening, self.radial_fraction
                 )
