@@ -10,6 +10,7 @@ from hypothesis import strategies as st
 from reference_values import Q1_GRAY_EPS06, Q2Q1_RIGID, Q_EPS0, Q_EPS1, Q_QUADRATIC_EXAMPLE, q1_dravins_1990
 from scipy import integrate, special
 
+from vsini import _jointrt
 from vsini import kernels as K
 from vsini.errors import InputError
 from vsini.grid import C_KMS
@@ -219,9 +220,9 @@ def test_joint_transform_matches_the_reference_quadrature(vsini, zeta, zeta_t, r
     zt = zeta if zeta_t is None else zeta_t
     panels = _reference_panels(smax, vsini, max(zeta, zt))
     reference = K.rotation_rt_transform(s, vsini, zeta, ld, radial, zeta_t, n_panels=panels)
-    K._cached_barycentric_matrix.cache_clear()
+    _jointrt._cached_barycentric_matrix.cache_clear()
     fast = K.rotation_rt_transform(s, vsini, zeta, ld, radial, zeta_t)
-    assert K._cached_barycentric_matrix.cache_info().currsize == (path == "chebyshev")
+    assert _jointrt._cached_barycentric_matrix.cache_info().currsize == (path == "chebyshev")
     np.testing.assert_allclose(fast, reference, rtol=0, atol=1e-11)
     assert fast[0] == pytest.approx(1.0, abs=1e-14)
     flipped = K.rotation_rt_transform(-s[::-1], vsini, zeta, ld, radial, zeta_t)
@@ -233,7 +234,7 @@ def test_joint_transform_refines_an_underestimated_chebyshev_degree(monkeypatch)
     fall below 1e-13 (or the frequencies are computed one by one): the result is unchanged."""
     s = np.linspace(0.0, 0.44, 283)
     expected = K.rotation_rt_transform(s, 20.0, 4.0, 0.6)
-    monkeypatch.setattr(K, "_chebyshev_degree", lambda *args: 8)
+    monkeypatch.setattr(_jointrt, "_chebyshev_degree", lambda *args: 8)
     np.testing.assert_allclose(K.rotation_rt_transform(s, 20.0, 4.0, 0.6), expected, rtol=0, atol=1e-12)
 
 
@@ -248,7 +249,7 @@ def test_flux_gauss_rule_integrates_polynomials_exactly(ld):
     def moment(k):
         return c0 / (k + 1) + c1 * special.beta(1.5, k + 1) + c2 / ((k + 1) * (k + 2))
     for n in (3, 40, 200):
-        _, rho, _, w = K._flux_rule(n, ld)
+        _, rho, _, w = _jointrt._flux_rule(n, ld)
         assert np.all(w > 0) and np.all((rho > 0) & (rho < 1))
         for k in (0, 1, n, 2 * n - 1):
             assert w @ rho**k == pytest.approx(moment(k) / moment(0), rel=1e-11)
