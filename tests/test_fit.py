@@ -471,3 +471,22 @@ def test_noiseless_spectrum_is_measured_by_both_methods():
     flat = Spectrum(spec.wavelength, np.ones_like(spec.flux))
     row = measure_star(flat, resolution=60000).row
     assert "no_lines" in row["flags"].split() and "fit_failed" not in row["flags"].split()
+
+
+def test_intrinsic_width_systematic_covers_a_wrong_width_assumption():
+    """Below c/R the rotational and intrinsic widths add almost in quadrature (Gray 2005, ch. 18), so the
+    assumed microturbulence decides v sin i. Lines made with b = 1.50 km/s, fitted assuming Fe at 5800 K
+    with 1 km/s microturbulence (b = 1.65 km/s): the statistical error alone misses the truth, the
+    systematic error (microturbulence +/- 0.5 km/s) covers it and the flag says so. At 30 km/s the
+    assumption hardly matters."""
+    lines = [(5400.0 + 12.0 * k, 0.5) for k in range(1, 7)]
+    slow = simulate_spectrum(lines, wave_range=(5400, 5490), step=0.03, vsini=3.0, resolution=60000, snr=None,
+                             intrinsic_width=1.5)
+    res = fit_vsini(slow, lines=[c for c, _ in lines], resolution=60000, macroturbulence=None)
+    assert abs(res.vsini_kms - 3.0) > 3 * res.vsini_err_kms
+    assert abs(res.vsini_kms - 3.0) < 2 * math.hypot(res.vsini_err_kms, res.vsini_sys_kms)
+    assert "width_systematic" in res.flags and res.as_row()["vsini_fit_sys"] == res.vsini_sys_kms
+    fast = simulate_spectrum(lines, wave_range=(5400, 5490), step=0.03, vsini=30.0, resolution=60000, snr=300,
+                             intrinsic_width=1.5, rng=3)
+    res = fit_vsini(fast, lines=[c for c, _ in lines], resolution=60000, macroturbulence=None)
+    assert res.vsini_sys_kms < 0.2 * res.vsini_err_kms and "width_systematic" not in res.flags

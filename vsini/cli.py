@@ -241,6 +241,8 @@ def _print_measurement(m, spectrum_name):
     else:
         typer.echo(f"  v sin i (adopted): {_fmt(r['vsini_adopted'], r['vsini_adopted_err'])} km/s  ({r['adopted_method']})")
     fit_txt = _fmt(r["vsini_fit"], r["vsini_fit_err"])
+    if math.isfinite(r["vsini_fit"]) and math.isfinite(r["vsini_fit_sys"]):
+        fit_txt += f" (stat.) +/- {r['vsini_fit_sys']:.2f} (intrinsic width)"
     if math.isfinite(r["vsini_fit_upper_limit"]):
         fit_txt = f"< {r['vsini_fit_upper_limit']:.2f} (upper limit)"
     four_txt = _fmt(r["vsini_fourier"], r["vsini_fourier_err"])

@@ -51,6 +51,7 @@ RESULT_COLUMNS = {
     "adopted_method": None,
     "vsini_fit": "km/s",
     "vsini_fit_err": "km/s",
+    "vsini_fit_sys": "km/s",
     "vsini_fit_upper_limit": "km/s",
     "vsini_fourier": "km/s",
     "vsini_fourier_err": "km/s",
@@ -261,12 +262,16 @@ def measure_star(
 
     fit_value = _num(fit.vsini_kms) if fit else _NAN
     fit_err = _num(fit.vsini_err_kms) if fit else _NAN
+    fit_sys = _num(fit.vsini_sys_kms) if fit else _NAN
+    # the adopted error and the comparison with the Fourier value (which hardly depends on the intrinsic
+    # width) use the fit's statistical and intrinsic-width errors in quadrature
+    fit_total = math.hypot(fit_err, fit_sys) if math.isfinite(fit_sys) else fit_err
     fit_limit = _num(fit.upper_limit_kms) if fit and fit.is_upper_limit else _NAN
     four_value = _num(four.vsini_kms) if four else _NAN
     four_err = _num(four.vsini_err_kms) if four else _NAN
     four_limit = _num(four.limit_kms) if four and four.is_limit else _NAN
     value, err, is_limit, how, diff, adopt_flags = adopt(
-        fit_value, fit_err, fit_limit, four_value, four_err, four_limit,
+        fit_value, fit_total, fit_limit, four_value, four_err, four_limit,
         macro_degenerate=bool(fit and "macro_degenerate" in fit.flags),
     )
     flags += list(adopt_flags)
@@ -286,6 +291,7 @@ def measure_star(
         "adopted_method": how,
         "vsini_fit": fit_value,
         "vsini_fit_err": fit_err,
+        "vsini_fit_sys": fit_sys,
         "vsini_fit_upper_limit": fit_limit,
         "vsini_fourier": four_value,
         "vsini_fourier_err": four_err,

@@ -60,6 +60,11 @@ __all__ = ["LineFit", "FitResult", "Chi2Map", "fit_vsini", "detection_limit", "c
            "DELTA_CHI2_2PARAM", "DETECTION_DCHI2", "MACRO_LIMIT_DCHI2"]
 
 MACRO_AT_ZERO = 0.01  # km/s: a fitted macroturbulence below this sits at its lower bound
+#: Uncertainty (km/s) assumed for the microturbulence when the intrinsic line width is fixed: the fit
+#: is redone with the microturbulent part of every width changed by this much either way, and half the
+#: change of v sin i is its systematic error (``vsini_sys_kms``). Microturbulence of FGK stars is rarely
+#: known better than about 0.5 km/s (common practice).
+MICRO_ERR_KMS = 0.5
 EW_SIGNIFICANCE = 3.0  # a detected line whose fitted equivalent width is below 3 sigma is dropped
 
 
@@ -129,6 +134,7 @@ class FitResult:
     snr: float
     correlation_vsini_macro: float
     delta_chi2_zero: float = float("nan")
+    vsini_sys_kms: float = float("nan")
     macroturbulence_upper_limit_kms: float = float("nan")
     lines_detected: bool = False
     name: str = ""
@@ -142,7 +148,7 @@ class FitResult:
     def as_row(self):
         """Values for a results table / JSON object (NaN where nothing was measured)."""
         return {
-            "vsini_fit": self.vsini_kms, "vsini_fit_err": self.vsini_err_kms,
+            "vsini_fit": self.vsini_kms, "vsini_fit_err": self.vsini_err_kms, "vsini_fit_sys": self.vsini_sys_kms,
             "vsini_fit_upper_limit": self.upper_limit_kms, "vsini_fit_detection_limit": self.detection_limit_kms,
             "rv_fit": self.rv_kms, "rv_fit_err": self.rv_err_kms,
             "macroturbulence": self.macroturbulence_kms, "macroturbulence_err": self.macroturbulence_err_kms,
@@ -157,6 +163,8 @@ class FitResult:
                    f"detection limit {self.detection_limit_kms:.2f} km/s)"
         else:
             head = f"v sin i = {self.vsini_kms:.2f} +/- {self.vsini_err_kms:.2f} km/s ({self.error_method})"
+            if math.isfinite(self.vsini_sys_kms):
+                head += f" +/- {self.vsini_sys_kms:.2f} km/s (intrinsic width, microturbulence +/- {MICRO_ERR_KMS} km/s)"
         macro = {"off": "off", "fixed": f"{self.macroturbulence_kms:.2f} km/s (fixed)"}.get(
             self.macroturbulence_mode, f"{self.macroturbulence_kms:.2f} +/- {self.macroturbulence_err_kms:.2f} km/s")
         if math.isfinite(self.macroturbulence_upper_limit_kms):
@@ -385,7 +393,7 @@ def fit_vsini(spectrum, *, lines=None, resolution=None, limb_darkening=0.6, macr
         res = _lmfit(model, res.params, model.y, sigma, scale)
     dropped = tuple(_dropped_items(screened)) + dropped_x
     return _build_result(spectrum, model, res, sigma, scale, dropped, ld, resolution, macro_mode, free_b, mc, rng,
-                         detected)
+                         detected, microturbulence)
 
 
 def _recentre(model, res, active, ew_guess):
@@ -447,8 +455,38 @@ def _noise(model, spectrum):
     return np.full(model.n_data, s), True
 
 
+def _off_lower_bound(params, step=0.5):
+    """A copy of ``params`` with free v sin i and macroturbulence moved ``step`` km/s up from a start at zero.
+
+    A bounded parameter starting on its bound has a zero gradient in lmfit's internal (sine) variables, and
+    Levenberg-Marquardt can then stop at once without moving any parameter; a restart from the best fit
+    (a refit of other data or of another model) must start just inside the range."""
+    out = params.copy()
+    for name in ("vsini", "macro"):
+        par = out[name]
+        if par.vary and par.value < par.min + 1e-3:
+            par.value = par.min + step
+    return out
+
+
+def _width_systematic(model, res, sigma, scale, microturbulence):
+    """Systematic error of v sin i from the assumed intrinsic width: half the change of the best fit when
+    the microturbulent part :math:`\\xi` of every width :math:`b = \\sqrt{b_\\mathrm{th}^2 + \\xi^2}` (Gray 2005,
+    ch. 11) is changed by :data:`MICRO_ERR_KMS` either way (the lower one floored at zero). Below about
+    c/R, where the rotational and intrinsic widths add almost in quadrature, this dominates the error."""
+    xi = max(float(microturbulence), 0.0)
+    b2 = model.feature_b**2 - xi**2
+    out = []
+    for x in (xi + MICRO_ERR_KMS, max(xi - MICRO_ERR_KMS, 0.0)):
+        alt = model.with_intrinsic_widths(np.sqrt(np.clip(b2 + x**2, 1e-4, None)))
+        if alt.rt_mode == "joint" and res.params["macro"].vary:  # a derivative: the fast product form suffices
+            alt = alt.with_rt_mode("product")
+        out.append(_lmfit(alt, _off_lower_bound(res.params), model.y, sigma, scale).params["vsini"].value)
+    return 0.5 * abs(out[0] - out[1])
+
+
 def _build_result(spectrum, model, res, sigma, scale, dropped, ld, resolution, macro_mode, free_b, mc, rng,
-                  detected=False):
+                  detected=False, microturbulence=1.0):
     values = res.params.valuesdict()
     free = tuple(n for n, p in res.params.items() if p.vary)
     redchi = float(res.redchi)
@@ -484,6 +522,11 @@ def _build_result(spectrum, model, res, sigma, scale, dropped, ld, resolution, m
     upper = max(math.sqrt(v_best**2 + 2.0 * sigma_s), v_det) if unresolved else float("nan")
     if unresolved:
         flags.append("unresolved")
+    v_sys = float("nan")
+    if not unresolved and not free_b:
+        v_sys = _width_systematic(model, res, sigma, scale, microturbulence)
+        if v_sys > v_err:
+            flags.append("width_systematic")
     if not res.success or not res.errorbars:
         flags.append("fit_failed")
     for pname in ("vsini", "macro", "bint", "rv", *model.shift_names()):
@@ -521,6 +564,7 @@ def _build_result(spectrum, model, res, sigma, scale, dropped, ld, resolution, m
         limb_darkening=ld, resolution=resolution, chi2=float(res.chisqr), redchi=redchi, n_data=model.n_data,
         n_free=len(free), n_lines=n_lines, lines=_line_fits(model, res, sig_eff), dropped=tuple(dropped),
         flags=check_flags(flags), error_method=method, snr=float(snr), correlation_vsini_macro=corr, delta_chi2_zero=dchi2,
+        vsini_sys_kms=v_sys,
         macroturbulence_upper_limit_kms=m_limit, lines_detected=bool(detected),
         name=spectrum.name, mc_samples=samples, params=dict(values), free=free, model=model,
         sigma=sigma, scaled_errors=scale,
@@ -532,6 +576,7 @@ def _monte_carlo(model, params, sig_eff, n, rng):
     gen = np.random.default_rng(rng)
     best = model.evaluate(params.valuesdict())
     out = np.empty((n, 2))
+    params = _off_lower_bound(params)
     for k in range(n):
         res = _lmfit(model, params, best + sig_eff * gen.standard_normal(best.size), sig_eff, False)
         out[k] = res.params["vsini"].value, res.params["macro"].value

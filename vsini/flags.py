@@ -23,13 +23,16 @@ FLAGS: dict[str, str] = {
     "macro_degenerate": "v sin i and macroturbulence are strongly correlated (|r| > 0.9): their split is unreliable",
     "poor_fit": "reduced chi-square above 3 with given uncertainties: the model does not describe the lines well",
     "undersampled": "fewer than 2 pixels per resolution element",
+    "width_systematic": "profile fit: the assumed intrinsic line width (microturbulence +/- 0.5 km/s) moves v sin i by more than its statistical error: quote the systematic error (vsini_fit_sys) too; typical near or below c/R",
     # Fourier first-zero estimator (vsini.fourier)
     "fourier_noise": "Fourier: no zero stands clear of the noise: only an upper limit (or nothing, if no line) is given",
     "fourier_unresolved": "Fourier: no zero below the frequency where the instrument's transform sinks into the noise; upper limit below c/R",
     "fourier_no_q2": "Fourier: the second zero is not clear of the noise: no q2/q1",
+    "fourier_marginal": "Fourier: the first zero is marginal (the lobe after it, as predicted from the main lobe, does not clear the noise): the value is selection-biased and its error widened; treat it with caution",
     "differential_candidate": "Fourier: q2/q1 more than 2 sigma below the rigid-rotation range of the limb-darkening law: solar-like differential rotation candidate",
+    "antisolar_candidate": "Fourier: q2/q1 more than 2 sigma above the rigid-rotation range of the limb-darkening law: anti-solar differential rotation (poles faster) candidate; a cool polar spot or weaker limb darkening than assumed raise it too",
     "macro_shifts_zeros": "Fourier: radial-tangential macroturbulence comparable to v sin i moves the zeros (corrected with the joint kernel where possible); q2/q1 not used for differential rotation",
-    "macro_unknown": "Fourier: q2/q1 is low but no macroturbulence was given: radial-tangential macroturbulence could lower it too",
+    "macro_unknown": "Fourier: q2/q1 is outside the rigid range but no macroturbulence was given: radial-tangential macroturbulence could lower it too (or raise it, when mostly radial)",
     # comparison and adoption (vsini.compare)
     "methods_disagree": "the profile fit and the Fourier first zero differ by more than 3 combined sigma: the adopted error is widened to cover both",
     "fourier_only": "the profile fit failed: the adopted value is the Fourier first-zero estimate",

@@ -6,14 +6,14 @@ Those other factors have no zeros, so the zeros of the line's transform are the 
 :math:`\\sigma_k = q_k/(v\\sin i)`, with :math:`q_k` fixed by the limb-darkening law (Carroll 1933 [1]_;
 Gray 2005 [2]_; Dravins, Lindegren & Torkelsson 1990 [3]_). The ratio :math:`q_2/q_1` of the first two
 zeros is about 1.76 for a rigid rotator with linear limb darkening 0.6 and falls with solar-like
-differential rotation (Reiners & Schmitt 2002 [4]_).
+differential rotation (Reiners & Schmitt 2002 [4]_) and rises with anti-solar differential rotation.
 
 The estimator: :func:`fourier_vsini` (results :class:`FourierResult`, :class:`LineZeros`). Its parts live
 in :mod:`vsini.fwindows` (line windows, :func:`spectrum_windows`), :mod:`vsini.ftransform` (taper,
 transform, noise rules, zero search on arrays) and :mod:`vsini.zeros` (zero positions :math:`q_k`,
 macroturbulence calibration, rigid q2/q1 range); their public names are re-exported here. Rules in
 ``docs/fourier.md``. v sin i :math:`= q_1/\\sigma_1` from the mean profile of all lines; with no accepted
-zero only an upper limit :math:`q_1/\\sigma_\\mathrm{noise}` (flag ``fourier_unresolved`` or
+zero in the mean profile only an upper limit (a zero in single lines alone is not adopted) :math:`q_1/\\sigma_\\mathrm{noise}` (flag ``fourier_unresolved`` or
 ``fourier_noise``). Given radial-tangential :math:`\\zeta`, :math:`q_1` is that of the joint kernel at
 :math:`\\zeta/v\\sin i`, solved self-consistently. Errors: seeded Monte Carlo noise resampling and the
 line-to-line scatter.
@@ -39,6 +39,7 @@ from .ftransform import (
     DEFAULT_TAPER,
     DEFAULT_THRESHOLD,
     FourierSpectrum,
+    ZeroCheck,
     ZeroSearch,
     _combine,
     _mc_zeros,
@@ -50,6 +51,7 @@ from .ftransform import (
     line_transform,
     transform_noise_level,
     usable_frequency_limit,
+    zero_check,
 )
 from .fwindows import FourierWindow, _as_window, _kms, spectrum_windows
 from .grid import C_KMS
@@ -75,6 +77,7 @@ __all__ = [
     "FourierWindow",
     "FourierSpectrum",
     "ZeroSearch",
+    "ZeroCheck",
     "LineZeros",
     "FourierResult",
     "cosine_taper",
@@ -82,6 +85,7 @@ __all__ = [
     "usable_frequency_limit",
     "line_transform",
     "fourier_zeros",
+    "zero_check",
     "rotation_zeros",
     "macro_zero_positions",
     "rigid_q2_q1_range",
@@ -131,6 +135,8 @@ class LineZeros:
     q2_q1, q2_q1_err : float or None
     limit_kms : float or None
         Upper limit when no zero is usable.
+    marginal : bool
+        The zero is marginal (:func:`vsini.ftransform.zero_check`): its error is the model-slope one.
     """
 
     label: str
@@ -146,6 +152,7 @@ class LineZeros:
     q2_q1: float | None = None
     q2_q1_err: float | None = None
     limit_kms: float | None = None
+    marginal: bool = False
 
     def __post_init__(self):
         _plain_numbers(self)
@@ -359,18 +366,39 @@ def fourier_vsini(data, *, lines=None, resolution=None, limb_darkening=0.6, macr
     *Adopted value and error*: the mean profile's :math:`q_1/\\sigma_1`; its error is the Monte Carlo
     spread (half the 16-84 percentile range of ``mc`` noise-resampled transforms: data plus noise drawn from
     the per-pixel uncertainty), multiplied by the scale factor :math:`S = \\sqrt{\\chi^2/(n-1)}` of the
-    line values about their weighted mean when :math:`S > 1` and at least three lines give zeros (lines that
-    disagree more than their errors allow: blends and continuum errors that resampling cannot see). Without ``mc`` the errors
-    are first order, :math:`\\eta/|\\partial_\\sigma\\mathrm{Re}\\,T|`. The limb-darkening uncertainty is
+    line values about their weighted mean when :math:`S > 1` and at least three lines give zeros that are not
+    marginal (lines that disagree more than their errors allow: blends and continuum errors that resampling
+    cannot see; a marginal line's error is understated and would inflate S). Without ``mc`` the errors are
+    first order, :math:`\\eta/|\\partial_\\sigma\\mathrm{Re}\\,T|`. The limb-darkening uncertainty is
     not included: :math:`dq_1/d\\epsilon \\approx 0.09` near 0.6 (1.4 % per 0.1 in :math:`\\epsilon`).
+
+    *Only the mean profile is adopted*. When it has no zero clear of the noise, a zero in one or two single
+    lines is far more likely a noise excursion (with n lines each tested, the chance that one passes by
+    noise grows as :math:`1-(1-p)^n`: multiple trials, common practice) and its first-order error is
+    meaningless (pulls of 2-6 measured at 1-2 c/R); the result is then the mean profile's upper limit.
+    ``vsini_lines_kms`` stays in the result for information.
+
+    *Marginal zeros* (:func:`vsini.ftransform.zero_check`, flag ``fourier_marginal``): when the lobe after
+    the zero, predicted from the main lobe (known kernel times a fitted Gaussian envelope), stays below
+    ``threshold`` times the noise, the zero passed only because noise deepened that lobe, which also
+    steepens the slope: first-order and Monte Carlo errors then come out about 1.3-1.5 times too small
+    (measured near c/R; ``tests/benchmarks/bench_fourier.py``). The error is then the larger of that and
+    the model-slope error :math:`\\eta/|M'(\\sigma_1)|` (conservative: flagged values scatter by 0.2-0.8 of
+    it), and q2/q1 is not used for the rotation flags.
 
     *Flags* (:data:`vsini.flags.FLAGS`): ``fourier_noise``, ``fourier_unresolved`` (no value, an upper
     limit or nothing), ``fourier_no_q2`` (second zero not usable), ``differential_candidate`` (q2/q1 more
     than two standard deviations below the rigid range of :func:`rigid_q2_q1_range`, with :math:`\\zeta`
-    given and below the limit),
+    given and below the limit), ``antisolar_candidate`` (q2/q1 more than two standard deviations *above* the
+    rigid range, :math:`\\zeta` given: poles faster than the equator, Reiners & Schmitt 2003; also a cool
+    polar spot, or weaker limb darkening than assumed: :math:`\\epsilon = 0.3` instead of 0.6 raises the
+    rigid ratio from 1.761 to 1.797), ``fourier_marginal`` (see above),
     ``macro_shifts_zeros`` (radial-tangential :math:`\\zeta/v\\sin i \\ge` :data:`MACRO_RATIO_LIMIT`, or
     zeros the joint kernel cannot have: q2/q1 is then not used for differential rotation), ``macro_unknown``
-    (such a low q2/q1 but no :math:`\\zeta` given: never called differential on q2/q1 alone).
+    (such a low or high q2/q1 but no :math:`\\zeta` given: never called differential on q2/q1 alone).
+    Radial-tangential macroturbulence lowers q2/q1 for :math:`A_R = 0.5`, but a mostly radial field raises
+    it (computed with the joint kernel, :math:`\\epsilon = 0.6`, :math:`A_R = 1`: 1.778, 1.826, 1.875 at
+    :math:`\\zeta/v\\sin i` = 0.5, 0.8, 1.0), so an unknown :math:`\\zeta` can fake either flag.
     """
     ld = as_limb_darkening(limb_darkening)
     if macro_kind not in ("rt", "gaussian"):
@@ -452,6 +480,12 @@ def fourier_vsini(data, *, lines=None, resolution=None, limb_darkening=0.6, macr
             if ratio >= MACRO_RATIO_LIMIT and have_zero:
                 flags.append("macro_shifts_zeros")
 
+    def _known(v, step):
+        """Transform of everything known for v sin i = v: rotation, given macroturbulence, instrument, pixel."""
+        model = Broadening(vsini=v, limb_darkening=ld, macroturbulence=macroturbulence or 0.0, macro_kind=macro_kind,
+                           radial_fraction=radial_fraction, resolution=resolution, lsf=lsf)
+        return lambda s: model.transform(s) * pixel_transform(s, step)
+
     # ---- lines
     line_results = []
     for i, (p, s) in enumerate(zip(preps, searches, strict=True)):
@@ -460,32 +494,42 @@ def fourier_vsini(data, *, lines=None, resolution=None, limb_darkening=0.6, macr
             line_results.append(LineZeros(p.label, s.status, s.ew_kms, s.ew_snr, limit_kms=limit))
             continue
         kw = _zero_values(s, mc_of(p, s, None if draws is None else draws[i]))
+        chk = zero_check(p, kw["sigma1"], _known(q1 / kw["sigma1"], p.step), sigma_top=lim[i], threshold=threshold)
+        if chk.marginal:
+            kw["sigma1_err"] = max(kw["sigma1_err"], chk.error_model)
         kw.update(vsini_kms=q1 / kw["sigma1"], vsini_err_kms=q1 / kw["sigma1"] * kw["sigma1_err"] / kw["sigma1"])
-        line_results.append(LineZeros(p.label, "ok", s.ew_kms, s.ew_snr, **kw))
+        line_results.append(LineZeros(p.label, "ok", s.ew_kms, s.ew_snr, marginal=chk.marginal, **kw))
     good = [r for r in line_results if r.status == "ok"]
     v_lines = e_lines = None
     scale = 1.0
     if good:
-        v_lines, e_lines, scale = _weighted_mean([r.vsini_kms for r in good], [r.vsini_err_kms for r in good])
+        v_lines, e_lines, _ = _weighted_mean([r.vsini_kms for r in good], [r.vsini_err_kms for r in good])
+    firm = [r for r in good if not r.marginal]  # a marginal line's error is understated: it would inflate S
+    if len(firm) >= 3:
+        scale = _weighted_mean([r.vsini_kms for r in firm], [r.vsini_err_kms for r in firm])[2]
 
     # ---- mean profile values
+    step = max(p.step for p in preps)
     res = dict(q2_q1=None, q2_q1_err=None, sigma1=None, sigma1_err=None, sigma2=None, sigma2_err=None)
     v_mean = e_mean = None
+    check = None
     if msearch is not None and msearch.status == "ok":
         mdraw = None if draws is None else np.concatenate([draws[i] for i in detected], axis=1)
         res.update(_zero_values(msearch, mc_of(mean, msearch, mdraw)))
+        check = zero_check(mean, res["sigma1"], _known(q1 / res["sigma1"], mean.step), sigma_top=top,
+                           threshold=threshold)
+        if check.marginal:  # the lobe that confirms the zero was selected for depth: model slope (Notes)
+            flags.append("fourier_marginal")
+            res["sigma1_err"] = max(res["sigma1_err"], check.error_model)
         v_mean = q1 / res["sigma1"]
         e_mean = v_mean * res["sigma1_err"] / res["sigma1"]
 
-    # ---- adopted value, or a limit
+    # ---- adopted value (the mean profile's), or a limit: single lines are never adopted on their own
     vsini = err = limit = None
     if v_mean is not None:
         vsini, err = v_mean, e_mean
-        if len(good) >= 3:  # lines disagree more than their errors allow: blends, continuum (PDG scale factor)
+        if len(firm) >= 3:  # lines disagree more than their errors allow: blends, continuum (PDG scale factor)
             err = err * max(1.0, scale)
-    elif v_lines is not None:
-        vsini, err = v_lines, e_lines
-    step = max(p.step for p in preps)
     if vsini is None:
         if msearch is None:
             flags.append("fourier_noise")
@@ -501,9 +545,11 @@ def fourier_vsini(data, *, lines=None, resolution=None, limb_darkening=0.6, macr
     rigid = rigid_q2_q1_range(ld, tolerance=ld_tolerance)
     if ratio is not None and math.isfinite(ratio) and ratio > 0:
         rigid = rigid_q2_q1_range(ld, tolerance=ld_tolerance, macro_ratio=ratio, radial_fraction=radial_fraction)
-    if res["q2_q1"] is not None and "macro_shifts_zeros" not in flags:
+    if res["q2_q1"] is not None and "macro_shifts_zeros" not in flags and "fourier_marginal" not in flags:
         if res["q2_q1"] + 2.0 * res["q2_q1_err"] < rigid[0]:
             flags.append("differential_candidate" if macroturbulence is not None else "macro_unknown")
+        elif res["q2_q1"] - 2.0 * res["q2_q1_err"] > rigid[2]:  # a mostly radial RT field raises q2/q1 (Notes)
+            flags.append("antisolar_candidate" if macroturbulence is not None else "macro_unknown")
 
     # ---- the mean profile's transform, with the expected one, for figures
     spec = None

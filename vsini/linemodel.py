@@ -120,6 +120,16 @@ class JointModel:
         out._cache, out._transforms = {}, {}
         return out
 
+    def with_intrinsic_widths(self, intrinsic_widths):
+        """The same model with other fixed intrinsic widths (km/s, one per feature); caches start empty."""
+        b = np.asarray(intrinsic_widths, dtype=float)
+        if b.shape != (self.n_features,) or not np.all(np.isfinite(b) & (b > 0)):
+            raise InputError(f"JointModel: give {self.n_features} positive intrinsic widths, got {intrinsic_widths!r}")
+        out = copy.copy(self)
+        out.feature_b = b
+        out._cache, out._transforms = {}, {}
+        return out
+
     # -- parameters -----------------------------------------------------------------------------
     def ew_names(self):
         """Names of the equivalent-width parameters, one per feature."""
