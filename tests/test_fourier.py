@@ -25,6 +25,7 @@ from vsini import ftransform as T
 from vsini import zeros as Z
 from vsini.errors import InputError, MeasurementError
 from vsini.fwindows import FourierWindow, spectrum_windows
+from vsini.fzerocheck import zero_check
 from vsini.grid import C_KMS
 from vsini.kernels import gaussian_transform, instrument_width
 from vsini.limbdark import quadratic
@@ -341,7 +342,7 @@ def test_zero_check_recovers_the_intrinsic_width_and_the_slope():
     prep = T._prepare(FourierWindow(v, d, 1e-4, 0.0), T.DEFAULT_TAPER)
     s1 = T._search(prep, sigma_top=1.0, threshold=3.0).zeros[0]
     known = Broadening(vsini=Z.rotation_zeros(0.6)[0] / s1, resolution=R)
-    chk = T.zero_check(prep, s1, lambda s: known.transform(s) * np.sinc(s * 1.0), sigma_top=1.0)
+    chk = zero_check(prep, s1, lambda s: known.transform(s) * np.sinc(s * 1.0), sigma_top=1.0)
     assert chk.envelope_b_kms == pytest.approx(4.0, rel=0.02)
     assert chk.slope_model == pytest.approx(chk.slope_observed, rel=0.02) and not chk.marginal
     assert chk.error_model == pytest.approx(chk.error_observed, rel=0.02)

@@ -53,7 +53,7 @@ def test_physics_modules_do_not_import_matplotlib():
     import ast
     from pathlib import Path
 
-    for name in ("kernels", "limbdark", "model", "grid", "spectrum", "surface", "fourier", "ftransform", "fwindows",
+    for name in ("kernels", "limbdark", "model", "grid", "spectrum", "surface", "fourier", "ftransform", "fzerocheck", "fwindows", "detect",
                  "zeros", "fit", "fitlimits", "lines", "linesets", "linemodel", "inclination", "deprojection",
                  "sensitivity", "simulate", "compare"):
         path = Path(vsini.__file__).parent / f"{name}.py"

@@ -39,7 +39,6 @@ from .ftransform import (
     DEFAULT_TAPER,
     DEFAULT_THRESHOLD,
     FourierSpectrum,
-    ZeroCheck,
     ZeroSearch,
     _combine,
     _mc_zeros,
@@ -51,9 +50,9 @@ from .ftransform import (
     line_transform,
     transform_noise_level,
     usable_frequency_limit,
-    zero_check,
 )
 from .fwindows import FourierWindow, _as_window, _kms, spectrum_windows
+from .fzerocheck import ZeroCheck, zero_check
 from .grid import C_KMS
 from .kernels import pixel_transform
 from .limbdark import as_limb_darkening
@@ -136,7 +135,7 @@ class LineZeros:
     limit_kms : float or None
         Upper limit when no zero is usable.
     marginal : bool
-        The zero is marginal (:func:`vsini.ftransform.zero_check`): its error is the model-slope one.
+        The zero is marginal (:func:`vsini.fzerocheck.zero_check`): its error is the model-slope one.
     """
 
     label: str
@@ -378,7 +377,7 @@ def fourier_vsini(data, *, lines=None, resolution=None, limb_darkening=0.6, macr
     meaningless (pulls of 2-6 measured at 1-2 c/R); the result is then the mean profile's upper limit.
     ``vsini_lines_kms`` stays in the result for information.
 
-    *Marginal zeros* (:func:`vsini.ftransform.zero_check`, flag ``fourier_marginal``): when the lobe after
+    *Marginal zeros* (:func:`vsini.fzerocheck.zero_check`, flag ``fourier_marginal``): when the lobe after
     the zero, predicted from the main lobe (known kernel times a fitted Gaussian envelope), stays below
     ``threshold`` times the noise, the zero passed only because noise deepened that lobe, which also
     steepens the slope: first-order and Monte Carlo errors then come out about 1.3-1.5 times too small
