@@ -438,3 +438,27 @@ def test_run_demo_wiring(monkeypatch, tmp_path):
     assert [p.suffix for p in seen["also"]] == [".csv", ".fits", ".tex"] and seen["report_dir"] == tmp_path
     assert seen["defaults"]["resolution"] == 60000.0 and seen["defaults"]["lsf"].source.endswith("lsf_example.ecsv")
     assert seen["jobs"] == 2
+
+
+def test_two_upper_limits_adopt_the_smaller_and_fourier_limits_hold():
+    """Adoption rule 4: with two upper limits the smaller is adopted. The Fourier limit (no zero below the
+    frequency where the transform sinks into the noise) must not fall below the injected v sin i of slow
+    rotators (truth: the simulator's input; c/R = 6 km/s at R 50 000)."""
+    from vsini.compare import adopt, measure_star
+    from vsini.simulate import simulate_spectrum
+
+    nan = float("nan")
+    value, _, is_limit, how, _, flags = adopt(nan, nan, 9.0, nan, nan, 5.0)
+    assert (value, is_limit, how, flags) == (5.0, True, "fourier_limit", ("unresolved",))
+    assert adopt(nan, nan, 4.0, nan, nan, 5.0)[3] == "fit_limit"
+    lines = "5250.2:0.5;5302.3:0.6;5324.2:0.6;5365.4:0.5;5371.5:0.7;5383.4:0.6"
+    for k, (frac, snr) in enumerate([(0.3, 100), (0.6, 100), (0.9, 200), (0.6, 50)]):
+        v = frac * 299792.458 / 50000
+        spec = simulate_spectrum(lines, wave_range=(5240, 5390), step=5300 / 150000, vsini=v, resolution=50000,
+                                 macroturbulence=3.0, snr=snr, rng=200 + k)
+        row = measure_star(spec, resolution=50000).row
+        if np.isfinite(row["vsini_fourier_upper_limit"]):
+            assert row["vsini_fourier_upper_limit"] > v
+        if row["vsini_adopted_is_limit"]:
+            limits = [x for x in (row["vsini_fit_upper_limit"], row["vsini_fourier_upper_limit"]) if np.isfinite(x)]
+            assert row["vsini_adopted"] == min(limits)
