@@ -25,6 +25,10 @@ _FWHM_PER_B = 2.0 * math.sqrt(math.log(2.0))  # FWHM of exp(-(v/b)^2) is 2 sqrt(
 #: model dominate anyway (common practice), and without a floor no line would stand "above the noise".
 NOISE_FLOOR = 1e-4
 
+#: Candidate smoothing, in units of half a resolution element: the finest first; a coarser one is tried
+#: only when a pass confirms no line (faint lines at low S/N, or lines much broader than the resolution).
+_SMOOTHING_LADDER = (1.0, 2.0, 4.0, 8.0)
+
 
 def _continuum_level(flux):
     """A rough continuum level: the 90th percentile of the flux (common practice; for starting values only)."""
@@ -130,7 +134,9 @@ def detect_lines(spectrum, *, resolution=None, min_snr=6.0, min_significance=5.0
                  max_lines=40, edge_kms=None, continuum_kms=1000.0):
     """Find isolated absorption lines in a spectrum.
 
-    Candidates: the flux is smoothed with a Gaussian of FWHM half a resolution element and divided by
+    Candidates: the flux is smoothed with a Gaussian of FWHM half a resolution element (when that finds
+    no line, 1, 2 and then 4 resolution elements, a matched filter closer to faint broad lines, with
+    ``min_ew_snr`` lowered by one) and divided by
     its 90th percentile in blocks of ``continuum_kms`` (the continuum); local maxima of the depression
     :math:`1 - F/F_c` deeper and more prominent than ``min_snr`` times the noise of the smoothed
     depression are kept if no other candidate deeper than 10 % of it lies within ``isolation`` times the
@@ -169,11 +175,28 @@ def detect_lines(spectrum, *, resolution=None, min_snr=6.0, min_significance=5.0
         Centres in the observed frame, measured, not laboratory wavelengths (species ``''``, label
         ``'auto NNNN.NN'``), sorted by wavelength.
     """
+    step = spectrum.velocity_step_kms()
+    base = 0.5 * C_KMS / resolution if resolution else 2.0 * step
+    found = ()
+    for factor in _SMOOTHING_LADDER:  # coarser only when nothing was found: faint, broad lines
+        # the coarse passes accept an equivalent width one sigma weaker (the matched-filter significance
+        # stays at min_significance; the fit then drops lines whose fitted strength is below 3 sigma)
+        ew_snr = min_ew_snr if factor == _SMOOTHING_LADDER[0] else max(min_ew_snr - 1.0, 3.0)
+        found = _detect(spectrum, base * factor, resolution=resolution, min_snr=min_snr,
+                        min_significance=min_significance, min_ew_snr=ew_snr, isolation=isolation,
+                        max_lines=max_lines, edge_kms=edge_kms, continuum_kms=continuum_kms)
+        if found or base * factor > 0.25 * continuum_kms:
+            break
+    return found
+
+
+def _detect(spectrum, smooth_kms, *, resolution, min_snr, min_significance, min_ew_snr, isolation, max_lines,
+            edge_kms, continuum_kms):
+    """One pass of :func:`detect_lines` with candidates from flux smoothed to a FWHM of ``smooth_kms``."""
     from scipy.ndimage import gaussian_filter1d
 
     good = spectrum.good
     step = spectrum.velocity_step_kms()
-    smooth_kms = 0.5 * C_KMS / resolution if resolution else 2.0 * step
     s_pix = max(smooth_kms / _FWHM_PER_B / math.sqrt(2.0) / step, 0.5)  # Gaussian sigma in pixels
     filled = np.where(good, spectrum.flux, 0.0)
     weight = gaussian_filter1d(good.astype(float), s_pix, mode="nearest")
