@@ -32,11 +32,14 @@ from .fitlimits import (
     DETECTION_DCHI2,
     MACRO_LIMIT_DCHI2,
     MACRO_MAX,
+    MICRO_ERR_KMS,
     Chi2Map,
     _delta_chi2_zero,
     _lmfit,
     _macro_upper_limit,
     _make_params,
+    _monte_carlo,
+    _width_systematic,
     chi2_map,
     detection_limit,
 )
@@ -60,11 +63,6 @@ __all__ = ["LineFit", "FitResult", "Chi2Map", "fit_vsini", "detection_limit", "c
            "DELTA_CHI2_2PARAM", "DETECTION_DCHI2", "MACRO_LIMIT_DCHI2"]
 
 MACRO_AT_ZERO = 0.01  # km/s: a fitted macroturbulence below this sits at its lower bound
-#: Uncertainty (km/s) assumed for the microturbulence when the intrinsic line width is fixed: the fit
-#: is redone with the microturbulent part of every width changed by this much either way, and half the
-#: change of v sin i is its systematic error (``vsini_sys_kms``). Microturbulence of FGK stars is rarely
-#: known better than about 0.5 km/s (common practice).
-MICRO_ERR_KMS = 0.5
 EW_SIGNIFICANCE = 3.0  # a detected line whose fitted equivalent width is below 3 sigma is dropped
 
 
@@ -455,50 +453,6 @@ def _noise(model, spectrum):
     return np.full(model.n_data, s), True
 
 
-def _off_lower_bound(params, step=0.5):
-    """A copy of ``params`` with free v sin i and macroturbulence moved ``step`` km/s up from a start at zero.
-
-    A bounded parameter starting on its bound has a zero gradient in lmfit's internal (sine) variables, and
-    Levenberg-Marquardt can then stop at once without moving any parameter; a restart from the best fit
-    (a refit of other data or of another model) must start just inside the range."""
-    out = params.copy()
-    for name in ("vsini", "macro"):
-        par = out[name]
-        if par.vary and par.value < par.min + 1e-3:
-            par.value = par.min + step
-    return out
-
-
-def _width_systematic(model, res, sigma, microturbulence):
-    """Systematic error of v sin i from the assumed intrinsic width.
-
-    The microturbulent part :math:`\\xi` of every width :math:`b = \\sqrt{b_\\mathrm{th}^2 + \\xi^2}`
-    (Gray 2005, ch. 11) is changed by :data:`MICRO_ERR_KMS` either way (the lower one floored at zero);
-    the best fit's response is one Gauss-Newton step, :math:`\\delta\\theta = (J^TJ)^{-1}J^T(r - \\delta m)`,
-    with :math:`J` the weighted Jacobian of the free parameters (those resting on their lower bound held
-    there), :math:`r` the residuals and :math:`\\delta m` the change of the model. Half the difference of
-    the two v sin i steps is returned. Below about c/R, where the rotational and intrinsic widths add
-    almost in quadrature, this dominates the error; there the first-order step is within about 10 % of
-    full refits (checked by hand on independent test spectra).
-    """
-    values = res.params.valuesdict()
-    names = [n for n, p in res.params.items()
-             if p.vary and not (n in ("vsini", "macro") and p.value < p.min + 1e-3)]
-    if "vsini" not in names:
-        return float("nan")
-    jac = model.jacobian(values, names) / sigma[:, None]
-    base = model.evaluate(values)
-    resid = (model.y - base) / sigma
-    xi = max(float(microturbulence), 0.0)
-    b2 = model.feature_b**2 - xi**2
-    steps = []
-    for x in (xi + MICRO_ERR_KMS, max(xi - MICRO_ERR_KMS, 0.0)):
-        alt = model.with_intrinsic_widths(np.sqrt(np.clip(b2 + x**2, 1e-4, None)))
-        delta = (alt.evaluate(values) - base) / sigma
-        steps.append(np.linalg.lstsq(jac, resid - delta, rcond=None)[0][names.index("vsini")])
-    return float(0.5 * abs(steps[0] - steps[1]))
-
-
 def _build_result(spectrum, model, res, sigma, scale, dropped, ld, resolution, macro_mode, free_b, mc, rng,
                   detected=False, microturbulence=1.0):
     values = res.params.valuesdict()
@@ -583,18 +537,6 @@ def _build_result(spectrum, model, res, sigma, scale, dropped, ld, resolution, m
         name=spectrum.name, mc_samples=samples, params=dict(values), free=free, model=model,
         sigma=sigma, scaled_errors=scale,
     )
-
-
-def _monte_carlo(model, params, sig_eff, n, rng):
-    """Refit ``n`` noise realisations around the best-fit model; returns (n, 2) v sin i and macroturbulence."""
-    gen = np.random.default_rng(rng)
-    best = model.evaluate(params.valuesdict())
-    out = np.empty((n, 2))
-    params = _off_lower_bound(params)
-    for k in range(n):
-        res = _lmfit(model, params, best + sig_eff * gen.standard_normal(best.size), sig_eff, False)
-        out[k] = res.params["vsini"].value, res.params["macro"].value
-    return out
 
 
 def _line_fits(model, res, sig_eff):
