@@ -243,7 +243,7 @@ def test_faint_broad_lines_found_by_the_coarse_pass_and_noise_is_not():
     centres = [5180.0, 5205.0, 5230.0, 5255.0, 5280.0]
     spec = simulate_spectrum([(c, 0.5) for c in centres], wave_range=(5160, 5300), step=0.04, vsini=11.0,
                              resolution=60000, macroturbulence=3.0, snr=30, rng=7)
-    fine = _detect(spec, 0.5 * C_KMS / 60000, resolution=60000, min_snr=6.0, min_significance=5.0, min_ew_snr=5.0,
+    fine = _detect(spec, 0.5 * C_KMS / 60000, 1.0 / spec.snr_estimate(), resolution=60000, min_snr=6.0, min_significance=5.0, min_ew_snr=5.0,
                    isolation=2.5, max_lines=40, edge_kms=None, continuum_kms=1000.0)
     found = detect_lines(spec, resolution=60000)
     assert fine == () and len(found) >= 2

@@ -243,7 +243,7 @@ def measure_star(
         except VsiniError as e:
             fit_error = str(e)
             # "no usable line" is not a failure of the minimiser: say which it was
-            flags += [f for f in getattr(e, "flags", ()) if f == "no_lines"] or ["fit_failed"]
+            flags.append("no_lines" if "no_lines" in getattr(e, "flags", ()) else "fit_failed")
     if method in ("both", "fourier"):
         macro_value = None
         if fit is not None and math.isfinite(fit.macroturbulence_kms):

@@ -177,12 +177,14 @@ def detect_lines(spectrum, *, resolution=None, min_snr=6.0, min_significance=5.0
     """
     step = spectrum.velocity_step_kms()
     base = 0.5 * C_KMS / resolution if resolution else 2.0 * step
+    snr = spectrum.snr_estimate()
+    rel_noise = max(1.0 / snr if snr > 0 else 0.01, NOISE_FLOOR)  # no estimate (noise only): assume S/N 100
     found = ()
     for factor in _SMOOTHING_LADDER:  # coarser only when nothing was found: faint, broad lines
         # the coarse passes accept an equivalent width one sigma weaker (the matched-filter significance
         # stays at min_significance; the fit then drops lines whose fitted strength is below 3 sigma)
         ew_snr = min_ew_snr if factor == _SMOOTHING_LADDER[0] else max(min_ew_snr - 1.0, 3.0)
-        found = _detect(spectrum, base * factor, resolution=resolution, min_snr=min_snr,
+        found = _detect(spectrum, base * factor, rel_noise, resolution=resolution, min_snr=min_snr,
                         min_significance=min_significance, min_ew_snr=ew_snr, isolation=isolation,
                         max_lines=max_lines, edge_kms=edge_kms, continuum_kms=continuum_kms)
         if found or base * factor > 0.25 * continuum_kms:
@@ -190,9 +192,10 @@ def detect_lines(spectrum, *, resolution=None, min_snr=6.0, min_significance=5.0
     return found
 
 
-def _detect(spectrum, smooth_kms, *, resolution, min_snr, min_significance, min_ew_snr, isolation, max_lines,
+def _detect(spectrum, smooth_kms, rel_noise, *, resolution, min_snr, min_significance, min_ew_snr, isolation, max_lines,
             edge_kms, continuum_kms):
-    """One pass of :func:`detect_lines` with candidates from flux smoothed to a FWHM of ``smooth_kms``."""
+    """One pass of :func:`detect_lines` with candidates from flux smoothed to a FWHM of ``smooth_kms``
+    (``rel_noise``: the pixel noise over the continuum)."""
     from scipy.ndimage import gaussian_filter1d
 
     good = spectrum.good
@@ -205,9 +208,7 @@ def _detect(spectrum, smooth_kms, *, resolution, min_snr, min_significance, min_
     flux_s = np.where(weight > 0.5, flux_s, np.nan)
     cont = _running_continuum(flux_s, max(int(continuum_kms / step), 20))
     smooth = np.where(np.isfinite(flux_s), 1.0 - flux_s / cont, 0.0)
-    snr = spectrum.snr_estimate()
-    rel = 1.0 / snr if snr > 0 else 0.01  # no estimate (a spectrum of noise only): assume S/N 100
-    noise = max(rel, NOISE_FLOOR) / math.sqrt(2.0 * math.sqrt(math.pi) * s_pix)
+    noise = rel_noise / math.sqrt(2.0 * math.sqrt(math.pi) * s_pix)
     peaks, depth, fwhm = _maxima(smooth, min_snr * noise, min_snr * noise)  # fwhm in pixels
     if peaks.size == 0:
         return ()

@@ -29,9 +29,9 @@ DETECTION_DCHI2 = 9.0
 #: other free parameter re-fitted) has risen by this much: 2 sigma for one parameter (Press et al. 2007,
 #: Numerical Recipes 3rd ed., sec. 15.6), about a 97.7 % one-sided limit at the bound.
 MACRO_LIMIT_DCHI2 = 4.0
-#: Uncertainty (km/s) assumed for the microturbulence when the intrinsic line width is fixed: the fit
-#: is redone with the microturbulent part of every width changed by this much either way, and half the
-#: change of v sin i is its systematic error (``vsini_sys_kms``). Microturbulence of FGK stars is rarely
+#: Uncertainty (km/s) assumed for the microturbulence when the intrinsic line width is fixed: the
+#: microturbulent part of every width is changed by this much either way, and half the change of the
+#: best-fit v sin i (one Gauss-Newton step) is its systematic error (``vsini_sys_kms``). Microturbulence of FGK stars is rarely
 #: known better than about 0.5 km/s (common practice).
 MICRO_ERR_KMS = 0.5
 VSINI_MAX = 1000.0  # km/s, upper bound of the fit
@@ -262,16 +262,20 @@ def chi2_map(result, vsini_grid=None, macro_grid=None, *, n=15):
 # --------------------------------------------------------------------------------------------- errors
 
 
+def _on_lower_bound(name, par):
+    """True for a free v sin i or macroturbulence resting on its lower bound (zero)."""
+    return name in ("vsini", "macro") and par.vary and par.value < par.min + 1e-3
+
+
 def _off_lower_bound(params, step=0.5):
     """A copy of ``params`` with free v sin i and macroturbulence moved ``step`` km/s up from a start at zero.
 
     A bounded parameter starting on its bound has a zero gradient in lmfit's internal (sine) variables, and
-    Levenberg-Marquardt can then stop at once without moving any parameter; a restart from the best fit
-    (a refit of other data or of another model) must start just inside the range."""
+    Levenberg-Marquardt can then stop at once without moving any parameter; a refit from the best fit (of
+    other noise, as in :func:`_monte_carlo`) must start just inside the range."""
     out = params.copy()
-    for name in ("vsini", "macro"):
-        par = out[name]
-        if par.vary and par.value < par.min + 1e-3:
+    for name, par in out.items():
+        if _on_lower_bound(name, par):
             par.value = par.min + step
     return out
 
@@ -289,8 +293,7 @@ def _width_systematic(model, res, sigma, microturbulence):
     full refits (checked by hand on independent test spectra).
     """
     values = res.params.valuesdict()
-    names = [n for n, p in res.params.items()
-             if p.vary and not (n in ("vsini", "macro") and p.value < p.min + 1e-3)]
+    names = [n for n, p in res.params.items() if p.vary and not _on_lower_bound(n, p)]
     if "vsini" not in names:
         return float("nan")
     jac = model.jacobian(values, names) / sigma[:, None]

@@ -511,7 +511,6 @@ def fourier_vsini(data, *, lines=None, resolution=None, limb_darkening=0.6, macr
     step = max(p.step for p in preps)
     res = dict(q2_q1=None, q2_q1_err=None, sigma1=None, sigma1_err=None, sigma2=None, sigma2_err=None)
     v_mean = e_mean = None
-    check = None
     if msearch is not None and msearch.status == "ok":
         mdraw = None if draws is None else np.concatenate([draws[i] for i in detected], axis=1)
         res.update(_zero_values(msearch, mc_of(mean, msearch, mdraw)))
@@ -559,10 +558,7 @@ def fourier_vsini(data, *, lines=None, resolution=None, limb_darkening=0.6, macr
         spec = _spectrum_of(mean, top_plot)
         v_exp = vsini if vsini is not None else limit
         if v_exp:
-            zeta = macroturbulence or 0.0
-            model = Broadening(vsini=min(v_exp, 2000.0), limb_darkening=ld, macroturbulence=zeta,
-                               macro_kind=macro_kind, radial_fraction=radial_fraction, resolution=resolution, lsf=lsf)
-            expected = np.abs(model.transform(spec.sigma) * pixel_transform(spec.sigma, step))
+            expected = np.abs(_known(min(v_exp, 2000.0), step)(spec.sigma))
             spec = FourierSpectrum(spec.sigma, spec.amplitude, spec.real, spec.noise_level, expected)
 
     return FourierResult(

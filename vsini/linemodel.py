@@ -115,18 +115,19 @@ class JointModel:
         """The same model (windows, pixels, features) with another ``rt_mode``; caches start empty."""
         if rt_mode not in RT_MODES:
             raise InputError(f"JointModel: rt_mode must be one of {RT_MODES}, got {rt_mode!r}")
-        out = copy.copy(self)
-        out.rt_mode = rt_mode
-        out._cache, out._transforms = {}, {}
-        return out
+        return self._copy(rt_mode=rt_mode)
 
     def with_intrinsic_widths(self, intrinsic_widths):
         """The same model with other fixed intrinsic widths (km/s, one per feature); caches start empty."""
         b = np.asarray(intrinsic_widths, dtype=float)
         if b.shape != (self.n_features,) or not np.all(np.isfinite(b) & (b > 0)):
             raise InputError(f"JointModel: give {self.n_features} positive intrinsic widths, got {intrinsic_widths!r}")
+        return self._copy(feature_b=b)
+
+    def _copy(self, **changes):
+        """A shallow copy with ``changes`` applied and empty caches (they depend on the changed settings)."""
         out = copy.copy(self)
-        out.feature_b = b
+        out.__dict__.update(changes)
         out._cache, out._transforms = {}, {}
         return out
 
